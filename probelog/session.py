@@ -1,0 +1,1091 @@
+"""The session engine: a UI-agnostic state machine that walks a probing plan.
+
+The TUI, the headless runner and the tests drive it the same way (docs/engine.md).
+Every method that touches an instrument blocks; every method that changes state
+writes the journal first (data files before the event that names them, see
+docs/journal-events.md) and only then notifies subscribers.
+
+Phases: CALIBRATING (measure each standard) -> VERIFYING (cal computed and
+verified, waiting for accept / redo) -> PROBING <-> DECIDING (a landing waits for
+the operator) -> DONE. Drift re-measures happen inside PROBING and need no
+decision.
+
+Units: frequencies in Hz, power in dBm, offsets in um. Networks are skrf.Network
+with ``s`` shaped (n_freq, n_ports, n_ports).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import threading
+from dataclasses import dataclass, field
+from enum import Enum
+from pathlib import Path
+from typing import Any, Callable
+
+import skrf
+
+from probelog.bench import Bench, Die
+from probelog.verdicts import CheckResult, Verdict, overall
+
+CAUTIONS = """\
+Before you land:
+- ESD: wear a grounded wrist strap; keep the chuck and the probes grounded.
+  Millimetre-wave devices and probe tips are easily damaged by discharge.
+- Probe care: never move in XY while in contact (probelog separates first);
+  check planarity and tip marks before the session; keep overtravel modest.
+- RF power: the source power stays at or below the plan's limit.
+- Lab rules come first: follow your lab's procedures and safety instructions,
+  which take precedence over anything this tool says."""
+
+
+class EngineError(Exception):
+    """A call the engine cannot honour in its current state, or bad input."""
+
+
+class InstrumentError(EngineError):
+    """An instrument call failed; it was journaled as ``instrument-error``.
+
+    The engine is left in the state it had before the failed ``measure()``,
+    so the caller may simply call ``measure()`` again.
+    """
+
+    def __init__(self, where: str, error: BaseException):
+        super().__init__(f"{where}: {type(error).__name__}: {error}")
+        self.where = where
+        self.error = error
+
+
+class Phase(str, Enum):
+    CALIBRATING = "calibrating"
+    VERIFYING = "verifying"
+    PROBING = "probing"
+    DECIDING = "deciding"
+    DONE = "done"
+
+
+class StepKind(str, Enum):
+    CAL_STANDARD = "cal-standard"
+    SITE = "site"
+    VERIFY = "verify"
+    DRIFT = "drift"
+
+
+@dataclass(frozen=True)
+class Step:
+    """One thing ``measure()`` does.
+
+    ``landing`` is the 1-based landing number this measurement will get on
+    (die, site); ``index`` / ``total`` count steps of the same kind (standards of
+    the cal, or site landings of the plan). ``standard`` names the cal standard
+    for CAL_STANDARD steps.
+    """
+
+    kind: StepKind
+    die: Die
+    site: str
+    site_kind: str
+    landing: int
+    index: int
+    total: int
+    standard: str | None = None
+
+
+@dataclass
+class LandingOutcome:
+    """One measured landing (site, cal standard, verification or drift)."""
+
+    step: Step
+    raw: skrf.Network
+    corrected: skrf.Network | None
+    checks: list[CheckResult]
+    verdict: Verdict
+    metrics: dict | None
+    seq: int
+    files: dict[str, str] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class StandardStatus:
+    name: str
+    site: str
+    kind: str
+    measured: bool
+    verdict: Verdict | None
+
+
+@dataclass
+class CalOutcome:
+    """A computed calibration and what its verification said.
+
+    ``agreement`` holds ``other_method``, ``worst`` (linear |dS| bound), ``at_hz``
+    and ``verdict`` when a second algorithm could be compared, else None.
+    """
+
+    cal_id: str
+    method: str
+    ok: bool
+    message: str
+    calset: Any
+    verification: list[LandingOutcome]
+    agreement: dict | None
+    verdict: Verdict
+    seq: int
+    file: str | None = None
+
+
+# ---------------------------------------------------------------- events
+
+
+@dataclass(frozen=True, kw_only=True)
+class EngineEvent:
+    """Base of every engine notification; ``seq`` is the journal seq it follows."""
+
+    seq: int
+
+
+@dataclass(frozen=True, kw_only=True)
+class PhaseChanged(EngineEvent):
+    phase: Phase
+
+
+@dataclass(frozen=True, kw_only=True)
+class StepMeasured(EngineEvent):
+    outcome: LandingOutcome
+
+
+@dataclass(frozen=True, kw_only=True)
+class CalibrationComputed(EngineEvent):
+    outcome: CalOutcome
+
+
+@dataclass(frozen=True, kw_only=True)
+class DecisionRecorded(EngineEvent):
+    die: Die
+    site: str
+    landing: int
+    action: str
+    reason: str
+
+
+@dataclass(frozen=True, kw_only=True)
+class NoteAdded(EngineEvent):
+    text: str
+
+
+@dataclass(frozen=True, kw_only=True)
+class DriftChecked(EngineEvent):
+    outcome: LandingOutcome
+
+
+@dataclass(frozen=True, kw_only=True)
+class RecalibrationAdvised(EngineEvent):
+    reason: str
+
+
+@dataclass(frozen=True, kw_only=True)
+class InstrumentFailed(EngineEvent):
+    where: str
+    message: str
+
+
+@dataclass(frozen=True, kw_only=True)
+class SessionClosed(EngineEvent):
+    completed: bool
+
+
+Subscriber = Callable[[EngineEvent], None]
+
+
+# ---------------------------------------------------------------- engine
+
+
+def _die_json(die: Die) -> list[int]:
+    return [int(die[0]), int(die[1])]
+
+
+def _die_dir(die: Die) -> str:
+    return f"d{int(die[0])}_{int(die[1])}"
+
+
+class Engine:
+    """Walks a plan over a bench, checking and journaling every landing.
+
+    Not thread-safe for concurrent calls: the UI calls one method at a time from
+    a worker; a lock makes accidental overlap fail loudly instead of corrupting
+    state.
+    """
+
+    def __init__(self, plan, bench: Bench, journal, operator: str = "", *, _replay: list | None = None):
+        self.plan = plan
+        self.bench = bench
+        self.journal = journal
+        self.operator = operator
+        self._subscribers: list[Subscriber] = []
+        self._lock = threading.Lock()
+        self._configured = False
+        power = float(plan.settings.power_dbm)
+        if power > float(plan.power_limit_dbm):
+            raise EngineError(
+                f"plan {plan.name!r}: source power {power:g} dBm is above the plan's "
+                f"limit of {float(plan.power_limit_dbm):g} dBm; refusing to start"
+            )
+        # --- state, rebuilt from the journal on resume
+        self._phase = Phase.CALIBRATING if self._has_cal() else Phase.PROBING
+        self._cal_count = 0  # cal ids are cal1, cal2, ...
+        self._cal_id: str | None = None  # the cal being measured / verified
+        self._std_measured: dict[str, tuple[skrf.Network | None, Verdict, int, str]] = {}
+        self._std_landings: dict[tuple[str, str], int] = {}
+        self._pending_cal: CalOutcome | None = None
+        self._active_cal: CalOutcome | None = None
+        self._finished: dict[tuple[Die, str], str] = {}  # accept | skip | give-up
+        self._landings: dict[tuple[Die, str], int] = {}
+        self._touchdowns: dict[str, int] = {p: 0 for p in self._probe_ids()}
+        self._last_outcome: LandingOutcome | None = None
+        self._previous: dict[tuple[Die, str], skrf.Network] = {}
+        self._drift_ref: tuple[skrf.Network, int] | None = None
+        self._since_drift = 0
+        self._drift_due = False
+        self._auto_recals = 0
+        self._sequence = [(die, site) for die in plan.dies for site in plan.sequence]
+        if _replay is None:
+            self._open_session()
+            if self._phase is Phase.CALIBRATING:
+                self._start_cal()
+        else:
+            self._replay(_replay)
+
+    # ------------------------------------------------------------ construction
+
+    @classmethod
+    def new(cls, plan, bench: Bench, sessions_root: Path | str, operator: str = "",
+            session_id: str | None = None) -> "Engine":
+        """Create ``sessions_root/<session_id>/`` with a fresh journal and start."""
+        from probelog.journal import Journal
+
+        journal = Journal.create(Path(sessions_root), session_id)
+        try:
+            return cls(plan, bench, journal, operator)
+        except BaseException:
+            journal.close()
+            raise
+
+    @classmethod
+    def resume(cls, session_dir: Path | str, bench: Bench) -> "Engine":
+        """Reopen a session (after a crash or a quit) and continue where it stopped.
+
+        The journal's own recovery runs first (torn tail moved aside, orphan data
+        files adopted). State is rebuilt from the events alone; only the active
+        cal set and the drift reference are read back from disk.
+        """
+        from probelog.journal import Journal
+
+        journal = Journal.open(Path(session_dir))
+        try:
+            events = list(_journal_events(journal))
+            opened = next((e for e in events if e.type == "session-opened"), None)
+            if opened is None:
+                raise EngineError(f"{session_dir}: journal has no session-opened event; cannot resume")
+            closed = [e for e in events if e.type == "session-closed"]
+            if closed and closed[-1].payload.get("completed"):
+                raise EngineError(f"{session_dir}: session already completed; nothing to resume")
+            plan = _plan_from_opened(opened.payload, Path(session_dir))
+            return cls(plan, bench, journal, opened.payload.get("operator", ""), _replay=events)
+        except BaseException:
+            journal.close()
+            raise
+
+    # ------------------------------------------------------------ read-only view
+
+    def subscribe(self, callback: Subscriber) -> None:
+        self._subscribers.append(callback)
+
+    @property
+    def phase(self) -> Phase:
+        return self._phase
+
+    @property
+    def session_dir(self) -> Path:
+        return Path(self.journal.root)
+
+    @property
+    def session_id(self) -> str:
+        return self.session_dir.name
+
+    @property
+    def active_cal(self) -> CalOutcome | None:
+        return self._active_cal
+
+    @property
+    def pending_cal(self) -> CalOutcome | None:
+        """The computed cal waiting for accept / redo (phase VERIFYING)."""
+        return self._pending_cal
+
+    @property
+    def last_outcome(self) -> LandingOutcome | None:
+        return self._last_outcome
+
+    @property
+    def touchdowns(self) -> dict[str, int]:
+        return dict(self._touchdowns)
+
+    @property
+    def progress(self) -> tuple[int, int]:
+        return len(self._finished), len(self._sequence)
+
+    @property
+    def cal_standards(self) -> list[StandardStatus]:
+        out = []
+        for name, site in self._required():
+            got = self._std_measured.get(name)
+            out.append(StandardStatus(name, site, self._site(site).kind, got is not None,
+                                      got[1] if got else None))
+        return out
+
+    @property
+    def wafer_status(self) -> dict[Die, str]:
+        n_sites = len(self.plan.sequence)
+        status: dict[Die, str] = {}
+        for die in self.plan.dies:
+            acts = [self._finished.get((die, s.name)) for s in self.plan.sequence]
+            done = [a for a in acts if a is not None]
+            if not done:
+                status[die] = "todo"
+            elif len(done) < n_sites:
+                status[die] = "partial"
+            elif all(a == "skip" for a in done):
+                status[die] = "skipped"
+            elif any(a == "give-up" for a in done):
+                status[die] = "failed"
+            else:
+                status[die] = "done"
+        return status
+
+    @property
+    def next_step(self) -> Step | None:
+        if self._phase is Phase.CALIBRATING:
+            req = self._required()
+            for i, (name, site) in enumerate(req):
+                if name not in self._std_measured:
+                    return Step(StepKind.CAL_STANDARD, self._cal_die(), site, self._site(site).kind,
+                                self._std_landings.get((self._cal_id, site), 0) + 1, i, len(req), name)
+            return None
+        if self._phase is not Phase.PROBING:
+            return None
+        drift_site = self._drift_site()
+        if drift_site and self._active_cal is not None and (self._drift_ref is None or self._drift_due):
+            die = self._cal_die()
+            return Step(StepKind.DRIFT, die, drift_site, self._site(drift_site).kind,
+                        self._landings.get((die, drift_site), 0) + 1, 0, 1)
+        for i, (die, site) in enumerate(self._sequence):
+            if (die, site.name) not in self._finished:
+                return Step(StepKind.SITE, die, site.name, site.kind,
+                            self._landings.get((die, site.name), 0) + 1, i, len(self._sequence))
+        return None
+
+    # ------------------------------------------------------------ actions
+
+    def show_cautions(self) -> str:
+        """The cautions text (ESD, probe care, lab rules); journals ``cautions-shown``."""
+        self._append("cautions-shown", {"text": CAUTIONS})
+        return CAUTIONS
+
+    def measure(self) -> LandingOutcome:
+        """Execute ``next_step``: land, sweep, correct, check, write data, journal.
+
+        Raises InstrumentError (after journaling it) when a driver fails; the
+        engine state is unchanged and ``measure()`` may be called again.
+        """
+        with self._busy():
+            step = self.next_step
+            if step is None:
+                raise EngineError(f"nothing to measure in phase {self._phase.value}"
+                                  + (" (compute the calibration first)" if self._phase is Phase.CALIBRATING else ""))
+            if step.kind is StepKind.CAL_STANDARD:
+                return self._measure_standard(step)
+            if step.kind is StepKind.DRIFT:
+                return self._measure_drift(step)
+            return self._measure_site(step)
+
+    def compute_calibration(self) -> CalOutcome:
+        """Solve the cal from the measured standards, verify it on the verification
+        sites (measured now), compare with a second algorithm when the standards
+        allow. Phase becomes VERIFYING; call accept_calibration() or
+        redo_calibration(reason)."""
+        with self._busy():
+            self._require_phase(Phase.CALIBRATING)
+            missing = [n for n, _ in self._required() if n not in self._std_measured]
+            if missing:
+                raise EngineError(f"calibration {self._cal_id}: standards not measured yet: {', '.join(missing)}")
+            outcome = self._compute_and_verify()
+            self._pending_cal = outcome
+            self._set_phase(Phase.VERIFYING, outcome.seq)
+            self._emit(CalibrationComputed(seq=outcome.seq, outcome=outcome))
+            return outcome
+
+    def accept_calibration(self, reason: str = "") -> None:
+        with self._busy():
+            self._require_phase(Phase.VERIFYING)
+            cal = self._pending_cal
+            if cal is None or cal.calset is None:
+                raise EngineError(f"calibration {self._cal_id} could not be computed; redo it")
+            ev = self._append("cal-accepted", {"cal_id": cal.cal_id, "reason": reason})
+            self._activate(cal)
+            self._set_phase(self._probing_or_done(), ev.seq)
+
+    def redo_calibration(self, reason: str) -> None:
+        with self._busy():
+            self._require_phase(Phase.VERIFYING)
+            reason = _need_reason(reason, "redo the calibration")
+            ev = self._append("cal-rejected", {"cal_id": self._cal_id, "reason": reason})
+            self._pending_cal = None
+            self._start_cal()
+            self._set_phase(Phase.CALIBRATING, ev.seq)
+
+    def accept(self) -> None:
+        self._decide("accept", "")
+
+    def reland(self, reason: str = "") -> None:
+        """Measure the same site again (its landing number goes up by one)."""
+        self._decide("reland", reason)
+
+    def skip(self, reason: str) -> None:
+        self._decide("skip", _need_reason(reason, "skip a site"))
+
+    def give_up(self, reason: str) -> None:
+        """Record the site as failed and go on."""
+        self._decide("give-up", _need_reason(reason, "give up on a site"))
+
+    def note(self, text: str) -> None:
+        with self._busy():
+            text = _need_reason(text, "add a note")
+            pos = self._position()
+            ev = self._append("note", {"text": text, "die": _die_json(pos[0]) if pos else None,
+                                       "site": pos[1] if pos else None})
+            self._emit(NoteAdded(seq=ev.seq, text=text))
+
+    def request_drift(self) -> None:
+        """Make the next ``measure()`` re-measure the drift reference."""
+        if not self._drift_site():
+            raise EngineError(f"plan {self.plan.name!r} names no drift reference site")
+        self._drift_due = True
+
+    def recalibrate(self, reason: str) -> None:
+        """Back to CALIBRATING with a new cal id. The old cal stays active for
+        nothing: landings wait until the new cal is accepted."""
+        with self._busy():
+            if not self._has_cal():
+                raise EngineError(f"plan {self.plan.name!r} has no calibration")
+            if self._phase is Phase.DECIDING:
+                raise EngineError("decide on the current landing before recalibrating")
+            reason = _need_reason(reason, "recalibrate")
+            ev = self._append("recal-requested", {"reason": reason, "cal_id": self._next_cal_id()})
+            self._pending_cal = None
+            self._start_cal()
+            self._set_phase(Phase.CALIBRATING, ev.seq)
+
+    def close(self, completed: bool | None = None) -> None:
+        """Journal ``session-closed`` (completed defaults to: plan finished), close
+        the journal. Does not close the bench: whoever built it closes it."""
+        if completed is None:
+            completed = self._phase is Phase.DONE
+        try:
+            self._safe_separate()
+            ev = self._append("session-closed", {"completed": bool(completed), "summary": self.summary()})
+            self._emit(SessionClosed(seq=ev.seq, completed=bool(completed)))
+        finally:
+            self.journal.close()
+
+    def summary(self) -> dict:
+        acts = list(self._finished.values())
+        return {
+            "sites": len(self._sequence),
+            "accepted": acts.count("accept"),
+            "skipped": acts.count("skip"),
+            "failed": acts.count("give-up"),
+            "landings": sum(self._landings.values()),
+            "touchdowns": dict(self._touchdowns),
+            "cal_id": self._active_cal.cal_id if self._active_cal else None,
+        }
+
+    # ------------------------------------------------------------ decisions
+
+    def _decide(self, action: str, reason: str) -> None:
+        with self._busy():
+            if self._phase is Phase.PROBING and action in ("skip", "give-up"):
+                step = self.next_step  # skip / give up a site before landing on it
+                if step is None or step.kind is not StepKind.SITE:
+                    raise EngineError(f"nothing to {action} now")
+                die, site, landing = step.die, step.site, step.landing - 1
+            else:
+                self._require_phase(Phase.DECIDING)
+                out = self._last_outcome
+                die, site, landing = out.step.die, out.step.site, out.step.landing
+            ev = self._append("decision", {"die": _die_json(die), "site": site, "landing": landing,
+                                           "action": action, "reason": reason})
+            if action != "reland":
+                self._finished[(die, site)] = action
+                self._previous.pop((die, site), None)
+            self._last_outcome = None
+            self._emit(DecisionRecorded(seq=ev.seq, die=die, site=site, landing=landing,
+                                        action=action, reason=reason))
+            self._set_phase(self._probing_or_done(), ev.seq)
+
+    # ------------------------------------------------------------ measuring
+
+    def _measure_site(self, step: Step) -> LandingOutcome:
+        raw = self._land(step.die, step.site)
+        cor = self._correct(raw)
+        use = cor if cor is not None else raw
+        site = self._site(step.site)
+        checks = self._checks(use, site, previous=self._previous.get((step.die, step.site)))
+        metrics = self._metrics(use, site)
+        base = f"data/{_die_dir(step.die)}/{step.site}/L{step.landing}"
+        files = self._write_pair(base, raw, cor, step)
+        verdict = overall(checks)
+        ev = self._append("landing", {
+            "die": _die_json(step.die), "site": step.site, "kind": site.kind, "landing": step.landing,
+            "cal_id": self._active_cal.cal_id if self._active_cal else None,
+            "raw": files["raw"], "corrected": files.get("corrected"),
+            "checks": [c.to_json() for c in checks], "verdict": verdict.value,
+            "metrics": metrics, "touchdowns": dict(self._touchdowns),
+        })
+        self._landings[(step.die, step.site)] = step.landing
+        self._previous[(step.die, step.site)] = use
+        self._count_for_drift()
+        out = LandingOutcome(step, raw, cor, checks, verdict, metrics, ev.seq,
+                             {k: v["path"] for k, v in files.items()})
+        self._last_outcome = out
+        self._emit(StepMeasured(seq=ev.seq, outcome=out))
+        self._set_phase(Phase.DECIDING, ev.seq)
+        return out
+
+    def _measure_standard(self, step: Step) -> LandingOutcome:
+        raw = self._land(step.die, step.site)
+        site = self._site(step.site)
+        checks = self._checks(raw, site, previous=None)
+        verdict = overall(checks)
+        suffix = "" if step.landing == 1 else f"-L{step.landing}"
+        files = self._write_pair(f"data/cal/{self._cal_id}/{step.site}{suffix}", raw, None, step)
+        ev = self._append("cal-standard", {
+            "cal_id": self._cal_id, "standard": step.standard, "die": _die_json(step.die),
+            "site": step.site, "kind": site.kind, "landing": step.landing, "raw": files["raw"],
+            "checks": [c.to_json() for c in checks], "verdict": verdict.value,
+            "touchdowns": dict(self._touchdowns),
+        })
+        self._std_landings[(self._cal_id, step.site)] = step.landing
+        self._std_measured[step.standard] = (raw, verdict, ev.seq, files["raw"]["path"])
+        out = LandingOutcome(step, raw, None, checks, verdict, None, ev.seq, {"raw": files["raw"]["path"]})
+        self._emit(StepMeasured(seq=ev.seq, outcome=out))
+        return out
+
+    def _measure_drift(self, step: Step) -> LandingOutcome:
+        raw = self._land(step.die, step.site)
+        cor = self._correct(raw)
+        use = cor if cor is not None else raw
+        site = self._site(step.site)
+        ref = self._drift_ref
+        checks = self._checks(use, site, previous=None, reference=ref[0] if ref else None)
+        verdict = overall(checks)
+        files = self._write_pair(f"data/{_die_dir(step.die)}/{step.site}/L{step.landing}", raw, cor, step)
+        ev = self._append("drift", {
+            "die": _die_json(step.die), "site": step.site, "landing": step.landing,
+            "cal_id": self._active_cal.cal_id if self._active_cal else None,
+            "reference_seq": ref[1] if ref else None, "raw": files["raw"],
+            "corrected": files.get("corrected"), "checks": [c.to_json() for c in checks],
+            "verdict": verdict.value, "touchdowns": dict(self._touchdowns),
+        })
+        self._landings[(step.die, step.site)] = step.landing
+        if ref is None:
+            self._drift_ref = (use, ev.seq)
+        self._since_drift = 0
+        self._drift_due = False
+        out = LandingOutcome(step, raw, cor, checks, verdict, None, ev.seq,
+                             {k: v["path"] for k, v in files.items()})
+        self._emit(DriftChecked(seq=ev.seq, outcome=out))
+        if ref is not None and verdict is Verdict.FAIL:
+            worst = next((c for c in checks if c.verdict is Verdict.FAIL), None)
+            reason = (f"drift on {step.site}: {worst.message}" if worst else f"drift on {step.site} failed")
+            adv = self._append("recal-requested", {"reason": reason, "advised_by": "drift",
+                                                   "drift_seq": ev.seq})
+            self._emit(RecalibrationAdvised(seq=adv.seq, reason=reason))
+        return out
+
+    def _compute_and_verify(self) -> CalOutcome:
+        from probelog import calibration as cal
+
+        method = self._cal_method()
+        kit = self._kit()
+        measured = self._standard_networks()
+        cal_dir = f"data/cal/{self._cal_id}"
+        names = [name for name, _ in self._required()]
+        try:
+            calset = cal.solve(method, measured, kit)
+            ok, message = True, f"{method.upper()} solved from {len(measured)} standards"
+        except Exception as exc:  # a singular or inconsistent set of standards
+            calset, ok, message = None, False, f"{method.upper()} could not be solved: {exc}"
+        ref = self._save_calset(calset, cal_dir) if calset is not None else None
+        ev = self._append("cal-computed", {"cal_id": self._cal_id, "method": method, "standards": names,
+                                           "file": ref, "ok": ok, "message": message})
+        outcome = CalOutcome(self._cal_id, method, ok, message, calset, [], None,
+                             Verdict.PASS if ok else Verdict.FAIL, ev.seq, ref["path"] if ref else None)
+        if not ok:
+            return outcome
+        for site_name in self._verify_sites():
+            outcome.verification.append(self._measure_verification(site_name, calset))
+        outcome.agreement = self._agreement(method, calset, measured, kit, cal_dir)
+        worst = [o.verdict for o in outcome.verification]
+        if outcome.agreement:
+            worst.append(Verdict(outcome.agreement["verdict"]))
+        outcome.verdict = max(worst, key=lambda v: v.rank, default=Verdict.PASS)
+        outcome.seq = self._last_seq()
+        return outcome
+
+    def _measure_verification(self, site_name: str, calset) -> LandingOutcome:
+        from probelog import calibration as cal
+
+        die = self._cal_die()
+        site = self._site(site_name)
+        landing = self._landings.get((die, site_name), 0) + 1
+        step = Step(StepKind.VERIFY, die, site_name, site.kind, landing, 0, 1)
+        raw = self._land(die, site_name)
+        cor = calset.apply(raw)
+        checks = list(cal.verify(cor, site.kind, self._limits(), getattr(site, "expectation", None)))
+        verdict = overall(checks)
+        files = self._write_pair(f"data/cal/{self._cal_id}/{site_name}", raw, cor, step)
+        ev = self._append("cal-verification", {
+            "cal_id": self._cal_id, "site": site_name, "die": _die_json(die), "landing": landing,
+            "raw": files["raw"], "corrected": files["corrected"],
+            "checks": [c.to_json() for c in checks], "verdict": verdict.value,
+            "touchdowns": dict(self._touchdowns),
+        })
+        self._landings[(die, site_name)] = landing
+        out = LandingOutcome(step, raw, cor, checks, verdict, None, ev.seq,
+                             {k: v["path"] for k, v in files.items()})
+        self._emit(StepMeasured(seq=ev.seq, outcome=out))
+        return out
+
+    # ------------------------------------------------------------ instruments
+
+    def _configure(self) -> None:
+        if self._configured:
+            return
+        try:
+            self.bench.vna.configure(self.plan.settings, float(self.plan.power_limit_dbm))
+        except Exception as exc:
+            self._instrument_failed("vna", exc)
+        self._configured = True
+
+    def _land(self, die: Die, site_name: str) -> skrf.Network:
+        """Separate, move at separation, contact, sweep. Counts touchdowns."""
+        site = self._site(site_name)
+        self._configure()
+        prober = self.bench.prober
+        try:
+            prober.separate()  # never move in XY while in contact
+            prober.move_to(die, tuple(site.offset_um))
+            before = dict(prober.touchdowns)
+            prober.contact()
+            after = dict(prober.touchdowns)
+        except Exception as exc:
+            self._instrument_failed("prober", exc)
+        counted = {p: after.get(p, 0) - before.get(p, 0) for p in after}
+        if not any(v > 0 for v in counted.values()):
+            counted = {p: 1 for p in self._touchdowns}  # prober keeps no count: one per landing
+        for p, n in counted.items():
+            self._touchdowns[p] = self._touchdowns.get(p, 0) + max(n, 0)
+        try:
+            return self.bench.vna.sweep(ports=int(getattr(site, "ports", 2)))
+        except Exception as exc:
+            self._instrument_failed("vna", exc)
+
+    def _instrument_failed(self, where: str, exc: BaseException):
+        self._configured = False  # the instrument may have been reset or reconnected
+        self._safe_separate()
+        ev = self._append("instrument-error", {"where": where, "error": type(exc).__name__,
+                                               "message": str(exc), "touchdowns": dict(self._touchdowns)})
+        self._emit(InstrumentFailed(seq=ev.seq, where=where, message=f"{type(exc).__name__}: {exc}"))
+        raise InstrumentError(where, exc) from exc
+
+    def _safe_separate(self) -> None:
+        try:
+            if self.bench.prober.in_contact:
+                self.bench.prober.separate()
+        except Exception:  # a broken prober is reported by the call that found it
+            pass
+
+    # ------------------------------------------------------------ data
+
+    def _correct(self, raw: skrf.Network) -> skrf.Network | None:
+        if self._active_cal is None or self._active_cal.calset is None:
+            return None
+        return self._active_cal.calset.apply(raw)
+
+    def _checks(self, ntwk: skrf.Network, site, previous=None, reference=None) -> list[CheckResult]:
+        from probelog.checks import run_checks
+
+        return list(run_checks(ntwk, site.kind, self._limits(), getattr(site, "expectation", None),
+                               previous, reference))
+
+    def _metrics(self, ntwk: skrf.Network, site) -> dict | None:
+        length_um = getattr(site, "length_um", None)
+        if site.kind not in ("line", "thru") or not length_um or ntwk.nports != 2:
+            return None
+        from probelog import lines
+
+        try:
+            m = lines.line_metrics(ntwk, float(length_um) * 1e-6)
+            return lines.metrics_at(m, lines.default_frequencies(m.f_hz))
+        except (ValueError, FloatingPointError, ZeroDivisionError):
+            return None  # metrics are information; the line-window check judges
+
+    def _write_pair(self, base: str, raw: skrf.Network, cor: skrf.Network | None, step: Step) -> dict:
+        files = {"raw": self._write_net(f"{base}-raw", raw, step, "raw")}
+        if cor is not None:
+            files["corrected"] = self._write_net(f"{base}-cor", cor, step, "corrected")
+        return files
+
+    def _write_net(self, stem: str, ntwk: skrf.Network, step: Step, what: str) -> dict:
+        from probelog.touchstone_out import network_to_touchstone
+
+        s = self.plan.settings
+        header = {
+            "session": self.session_id, "seq": self._last_seq() + 1, "what": what,
+            "step": step.kind.value, "die": f"{step.die[0]},{step.die[1]}", "site": step.site,
+            "kind": step.site_kind, "landing": step.landing,
+            "cal_id": (self._cal_id if step.kind in (StepKind.CAL_STANDARD, StepKind.VERIFY)
+                       else (self._active_cal.cal_id if self._active_cal else None)),
+            "wafer": self._wafer_id(), "start_hz": s.start_hz, "stop_hz": s.stop_hz,
+            "points": s.points, "ifbw_hz": s.ifbw_hz, "power_dbm": s.power_dbm,
+        }
+        data = network_to_touchstone(ntwk, header)
+        ref = self.journal.write_file(f"{stem}.s{ntwk.nports}p", data)
+        return {"path": str(ref.path), "sha256": ref.sha256}
+
+    def _save_calset(self, calset, cal_dir: str) -> dict:
+        ref = _save_calset(calset, self.journal, cal_dir)
+        return {"path": str(ref.path), "sha256": ref.sha256}
+
+    def _standard_networks(self) -> dict[str, skrf.Network]:
+        out = {}
+        for name, (ntwk, verdict, seq, path) in list(self._std_measured.items()):
+            if ntwk is None:  # resumed mid-calibration: read the raw standard back once
+                ntwk = skrf.Network(str(self.session_dir / path))
+                self._std_measured[name] = (ntwk, verdict, seq, path)
+            out[name] = ntwk
+        return out
+
+    def _agreement(self, method: str, calset, measured, kit, cal_dir: str) -> dict | None:
+        from probelog import calibration as cal
+
+        others = [m for m in cal.comparable_methods(method, kit) if m != method]
+        if not others:
+            return None
+        other_method = others[0]
+        try:
+            other = cal.solve(other_method, measured, kit)
+        except Exception:  # the second algorithm is a cross-check, not a requirement
+            return None
+        result = cal.agreement(calset, other, measured)
+        csv = _agreement_csv(result)
+        ref = self.journal.write_file(f"{cal_dir}/agreement-{method}-{other_method}.csv", csv)
+        verdict = _agreement_verdict(result, self._limits())
+        payload = {"cal_id": self._cal_id, "method": method, "other_method": other_method,
+                   "worst": float(result.worst), "at_hz": float(result.at_hz),
+                   "file": {"path": str(ref.path), "sha256": ref.sha256}, "verdict": verdict.value}
+        self._append("cal-agreement", payload)
+        return payload
+
+    # ------------------------------------------------------------ plan view
+
+    def _site(self, name: str):
+        try:
+            return self.plan.site(name)
+        except KeyError:
+            raise EngineError(f"plan {self.plan.name!r}: no site named {name!r}") from None
+
+    def _cal(self):
+        return getattr(self.plan, "calibration", None)
+
+    def _has_cal(self) -> bool:
+        cal = self._cal()
+        return cal is not None and str(cal.method).lower() not in ("", "none")
+
+    def _cal_method(self) -> str:
+        return str(self._cal().method).lower()
+
+    def _kit(self):
+        from probelog import calibration as cal
+
+        if getattr(self, "_kit_cache", None) is None:
+            self._kit_cache = cal.load_kit(self._cal().kit)
+        return self._kit_cache
+
+    def _required(self) -> list[tuple[str, str]]:
+        """(standard name, site name) pairs of the plan's cal method."""
+        if not self._has_cal():
+            return []
+        if getattr(self, "_required_cache", None) is None:
+            from probelog import calibration as cal
+
+            self._required_cache = [(str(n), str(s)) for n, s in
+                                    _pairs(cal.required_sites(self._cal_method(), self._kit()))]
+        return self._required_cache
+
+    def _cal_die(self) -> Die:
+        cal = self._cal()
+        die = getattr(cal, "die", None) if cal is not None else None
+        return tuple(die) if die is not None else tuple(self.plan.dies[0])
+
+    def _verify_sites(self) -> list[str]:
+        return list(getattr(self._cal(), "verify", ()) or ())
+
+    def _drift_site(self) -> str | None:
+        cal = self._cal()
+        return getattr(cal, "drift_site", None) if cal is not None and self._has_cal() else None
+
+    def _drift_every(self) -> int:
+        return int(getattr(self._cal(), "drift_every", 0) or 0)
+
+    def _limits(self):
+        return self.plan.limits
+
+    def _probe_ids(self) -> list[str]:
+        return list(getattr(self.plan, "probes", None) or ("port1", "port2"))
+
+    def _wafer_id(self) -> str:
+        return str(getattr(self.plan, "wafer_id", "") or "")
+
+    # ------------------------------------------------------------ bookkeeping
+
+    def _open_session(self) -> None:
+        plan, s = self.plan, self.plan.settings
+        bench_info = {"kind": getattr(self.bench, "kind", "") or "", "description": self.bench.description}
+        for key, inst in (("vna_idn", self.bench.vna), ("prober_idn", self.bench.prober)):
+            try:
+                bench_info[key] = inst.identify()
+            except Exception as exc:  # the session opens anyway; the error is on record
+                bench_info[key] = f"unavailable: {type(exc).__name__}: {exc}"
+        from probelog import __version__
+
+        self._append("session-opened", {
+            "session_id": self.session_id, "probelog_version": __version__,
+            "plan_name": plan.name, "plan_file": str(getattr(plan, "path", "") or ""),
+            "plan_sha256": getattr(plan, "sha256", None), "plan_text": getattr(plan, "text", None),
+            "operator": self.operator, "wafer": self._wafer_id(), "lot": str(getattr(plan, "lot", "") or ""),
+            "chip": str(getattr(plan, "chip", "") or ""), "probes": self._probe_ids(), "bench": bench_info,
+            "settings": {"start_hz": s.start_hz, "stop_hz": s.stop_hz, "points": s.points,
+                         "ifbw_hz": s.ifbw_hz, "power_dbm": s.power_dbm},
+        })
+
+    def _next_cal_id(self) -> str:
+        return f"cal{self._cal_count + 1}"
+
+    def _start_cal(self, cal_id: str | None = None) -> None:
+        cal_id = cal_id or self._next_cal_id()
+        self._cal_count = max(self._cal_count, int(cal_id.removeprefix("cal") or 0))
+        self._cal_id = cal_id
+        self._std_measured = {}
+        self._phase = Phase.CALIBRATING
+
+    def _activate(self, cal: CalOutcome) -> None:
+        self._active_cal = cal
+        self._pending_cal = None
+        self._drift_ref = None  # a new cal needs a new drift reference
+        self._drift_due = False
+        self._since_drift = 0
+        self._previous.clear()  # repeatability across cals compares apples and pears
+
+    def _probing_or_done(self) -> Phase:
+        return Phase.DONE if len(self._finished) >= len(self._sequence) else Phase.PROBING
+
+    def _count_for_drift(self) -> None:
+        self._since_drift += 1
+        every = self._drift_every()
+        if every and self._since_drift >= every:
+            self._drift_due = True
+
+    def _position(self) -> tuple[Die, str] | None:
+        if self._last_outcome is not None:
+            return self._last_outcome.step.die, self._last_outcome.step.site
+        step = self.next_step
+        return (step.die, step.site) if step else None
+
+    def _busy(self):
+        engine = self
+
+        class _Guard:
+            def __enter__(self):
+                if not engine._lock.acquire(blocking=False):
+                    raise EngineError("the engine is busy with another call")
+
+            def __exit__(self, *exc):
+                engine._lock.release()
+
+        return _Guard()
+
+    def _require_phase(self, phase: Phase) -> None:
+        if self._phase is not phase:
+            raise EngineError(f"expected phase {phase.value}, engine is {self._phase.value}")
+
+    def _append(self, type_: str, payload: dict):
+        return self.journal.append(type_, payload)
+
+    def _last_seq(self) -> int:
+        return int(self.journal.last_seq)
+
+    def _set_phase(self, phase: Phase, seq: int) -> None:
+        if phase is not self._phase:
+            self._phase = phase
+            self._emit(PhaseChanged(seq=seq, phase=phase))
+
+    def _emit(self, event: EngineEvent) -> None:
+        for cb in list(self._subscribers):
+            cb(event)
+
+    # ------------------------------------------------------------ resume
+
+    def _replay(self, events: list) -> None:
+        """Rebuild state from journal events; reads no Touchstone file here."""
+        pending: dict | None = None
+        active: dict | None = None
+        drift_ref: tuple[str, int] | None = None
+        phase = Phase.CALIBRATING if self._has_cal() else Phase.PROBING
+        for ev in events:
+            t, p = ev.type, ev.payload
+            if t == "cal-standard":
+                if p["cal_id"] != self._cal_id:
+                    self._start_cal(p["cal_id"])
+                self._std_landings[(p["cal_id"], p["site"])] = int(p["landing"])
+                self._std_measured[p["standard"]] = (None, Verdict(p["verdict"]), ev.seq, p["raw"]["path"])
+                self._touchdowns.update(p.get("touchdowns") or {})
+                phase = Phase.CALIBRATING
+            elif t == "cal-computed":
+                if p["cal_id"] != self._cal_id:
+                    self._start_cal(p["cal_id"])
+                pending = {"cal_id": p["cal_id"], "method": p["method"], "ok": bool(p["ok"]),
+                           "message": p.get("message", ""), "file": (p.get("file") or {}).get("path"),
+                           "seq": ev.seq, "verdicts": [Verdict.PASS if p["ok"] else Verdict.FAIL],
+                           "agreement": None}
+                phase = Phase.VERIFYING
+            elif t == "cal-verification":
+                self._landings[(tuple(p["die"]), p["site"])] = int(p.get("landing") or 1)
+                self._touchdowns.update(p.get("touchdowns") or {})
+                if pending is not None:
+                    pending["verdicts"].append(Verdict(p["verdict"]))
+            elif t == "cal-agreement" and pending is not None:
+                pending["agreement"] = dict(p)
+                pending["verdicts"].append(Verdict(p["verdict"]))
+            elif t == "cal-accepted":
+                active, pending, drift_ref = pending, None, None
+                self._since_drift, self._drift_due = 0, False
+                phase = Phase.PROBING
+            elif t == "cal-rejected":
+                pending = None
+                self._start_cal()
+                phase = Phase.CALIBRATING
+            elif t == "recal-requested" and p.get("cal_id"):
+                pending = None
+                self._start_cal(p["cal_id"])
+                phase = Phase.CALIBRATING
+            elif t == "landing":
+                self._landings[(tuple(p["die"]), p["site"])] = int(p["landing"])
+                self._touchdowns.update(p.get("touchdowns") or {})
+                self._count_for_drift()
+                phase = Phase.DECIDING
+            elif t == "drift":
+                self._landings[(tuple(p["die"]), p["site"])] = int(p["landing"])
+                self._touchdowns.update(p.get("touchdowns") or {})
+                if p.get("reference_seq") is None:
+                    drift_ref = ((p.get("corrected") or p["raw"])["path"], ev.seq)
+                self._since_drift, self._drift_due = 0, False
+            elif t == "decision":
+                if p["action"] != "reland":
+                    self._finished[(tuple(p["die"]), p["site"])] = p["action"]
+                phase = Phase.PROBING
+            elif t == "instrument-error":
+                self._touchdowns.update(p.get("touchdowns") or {})
+        # An undecided landing is measured again: after a crash the tips may
+        # have moved, so its data stays on record but is not decided upon.
+        if phase is Phase.DECIDING:
+            phase = Phase.PROBING
+        if active is not None:
+            calset = _load_calset(self.session_dir / active["file"])
+            self._active_cal = _cal_outcome(active, calset)
+            if drift_ref is not None:
+                self._drift_ref = (skrf.Network(str(self.session_dir / drift_ref[0])), drift_ref[1])
+        if pending is not None and phase is Phase.VERIFYING:
+            calset = _load_calset(self.session_dir / pending["file"]) if pending["file"] else None
+            self._pending_cal = _cal_outcome(pending, calset)
+        self._phase = phase
+        if phase is Phase.PROBING:
+            self._phase = self._probing_or_done()
+        if self._phase is Phase.CALIBRATING and self._cal_id is None:
+            self._start_cal()
+
+
+# ---------------------------------------------------------------- helpers
+
+
+def _need_reason(text: str, what: str) -> str:
+    text = (text or "").strip()
+    if not text:
+        raise EngineError(f"a reason is required to {what}")
+    return text
+
+
+def _pairs(required) -> list[tuple[str, str]]:
+    """required_sites() as (standard, site) pairs, whatever mapping or list it gives."""
+    if isinstance(required, dict):
+        return list(required.items())
+    out = []
+    for item in required:
+        if isinstance(item, (tuple, list)):
+            out.append((item[0], item[1]))
+        else:
+            out.append((getattr(item, "name", getattr(item, "standard", None)), item.site))
+    return out
+
+
+def _journal_events(journal):
+    return journal.events()
+
+
+def _plan_from_opened(payload: dict, session_dir: Path):
+    from probelog.plan import load_plan_text
+
+    text = payload.get("plan_text")
+    if not text:
+        raise EngineError(f"{session_dir}: session-opened carries no plan text; cannot resume")
+    return load_plan_text(text, source=payload.get("plan_file") or f"{session_dir}/journal.jsonl")
+
+
+def _save_calset(calset, journal, cal_dir: str):
+    return calset.save(journal, cal_dir)
+
+
+def _load_calset(path: Path):
+    from probelog.calibration import CalSet
+
+    return CalSet.load(path)
+
+
+def _cal_outcome(d: dict, calset) -> CalOutcome:
+    verdict = max(d["verdicts"], key=lambda v: v.rank, default=Verdict.PASS)
+    return CalOutcome(d["cal_id"], d["method"], d["ok"], d["message"], calset, [], d["agreement"],
+                      verdict, d["seq"], d["file"])
+
+
+def _agreement_csv(result) -> bytes:
+    import io
+
+    import numpy as np
+
+    buf = io.StringIO()
+    np.savetxt(buf, np.column_stack([result.f_hz, result.bounds]), delimiter=",",
+               header="f_hz," + ",".join(result.labels), comments="")
+    return buf.getvalue().encode()
+
+
+def _agreement_verdict(result, limits) -> Verdict:
+    return Verdict(getattr(result, "verdict", Verdict.PASS))
