@@ -1,0 +1,214 @@
+"""SCPI VNA driver: settings, one triggered sweep, S-parameters as a skrf.Network.
+
+Command words come from a dialect file (:mod:`drivers.dialect`); the generic one
+(``drivers/dialects/generic-vna.toml``) is what the simulated bench speaks.
+
+One sweep: (``set_ports``) -> ``trigger_single`` -> ``wait_complete`` (``*OPC?``,
+with a timeout stretched to the expected sweep time) -> ``fetch_sparams`` as an
+IEEE 488.2 REAL,64 block (byte order from the dialect) -> (``fetch_frequencies``)
+-> Network with 50 ohm ports. The error queue is read after every operation; any
+entry raises :class:`~drivers.errors.InstrumentError` quoting the instrument.
+
+If the instrument rejects ``format_binary`` (an error-queue entry) the driver
+falls back to ``format_ascii``; a data reply that does not start with ``#`` is
+parsed as comma-separated ASCII numbers in any case.
+
+Errors (all in :mod:`drivers.errors`): InstrumentTimeout, ConnectionLost,
+InstrumentUnreachable, MalformedBlock / ShortBlock, InstrumentError,
+PowerLimitError (raised before anything is sent). After a transport error call
+:meth:`ScpiVna.reopen`; the settings last applied are sent again.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import skrf
+
+from drivers.dialect import Dialect, load_dialect
+from drivers.errors import DriverError, InstrumentError, PowerLimitError, ReplyError
+from drivers.visa import Link, LinkSettings, open_resource
+from probelog.bench import SweepSettings
+
+Z0_OHM = 50.0
+
+
+def check_power(settings: SweepSettings, power_limit_dbm: float) -> None:
+    """Raise :class:`PowerLimitError` when the requested power exceeds the limit (dBm)."""
+    if not np.isfinite(settings.power_dbm) or settings.power_dbm > power_limit_dbm:
+        raise PowerLimitError(
+            f"source power {settings.power_dbm:g} dBm is above the plan's limit of "
+            f"{power_limit_dbm:g} dBm; nothing was sent to the VNA"
+        )
+
+
+def check_settings(settings: SweepSettings) -> None:
+    """Raise ValueError for a sweep the driver cannot ask for."""
+    if not (0 < settings.start_hz < settings.stop_hz):
+        raise ValueError(f"sweep needs 0 < start_hz < stop_hz, got {settings.start_hz:g} .. {settings.stop_hz:g} Hz")
+    if settings.points < 2:
+        raise ValueError(f"sweep needs at least 2 points, got {settings.points}")
+    if not settings.ifbw_hz > 0:
+        raise ValueError(f"IF bandwidth must be > 0 Hz, got {settings.ifbw_hz:g}")
+
+
+def sparams_from_values(values: np.ndarray, n_freq: int, order: list[str]) -> np.ndarray:
+    """Flat float64 [re, im per parameter per point] -> S of shape (n_freq, p, p).
+
+    ``order`` lists the parameter names ("S11", "S21", ...) in reply order.
+    """
+    n_par = len(order)
+    expected = n_freq * n_par * 2
+    if values.size != expected:
+        raise ReplyError(
+            f"S-parameter data has {values.size} values, expected {expected} "
+            f"({n_freq} points x {n_par} parameters x re/im)"
+        )
+    z = values.reshape(n_freq, n_par, 2)
+    c = z[..., 0] + 1j * z[..., 1]
+    ports = int(round(np.sqrt(n_par)))
+    s = np.empty((n_freq, ports, ports), dtype=complex)
+    for k, name in enumerate(order):
+        s[:, int(name[1]) - 1, int(name[2]) - 1] = c[:, k]
+    return s
+
+
+class ScpiVna:
+    """A VNA reached through VISA, speaking a dialect file's commands.
+
+    ``resource`` is a VISA resource string, ``backend`` a pyvisa backend ("@py",
+    "@ivi", "@sim" or "file.yaml@sim"), ``dialect`` a name in drivers/dialects or
+    a path. ``timeout_ms`` overrides the dialect's I/O timeout. Opening queries
+    the identity, so a wrong address fails here with InstrumentUnreachable.
+    """
+
+    def __init__(
+        self,
+        resource: str,
+        *,
+        backend: str | None = "@py",
+        dialect: str | Path | Dialect = "generic-vna",
+        timeout_ms: int | None = None,
+    ) -> None:
+        self.dialect = dialect if isinstance(dialect, Dialect) else load_dialect(dialect, "vna")
+        d = self.dialect
+        self._link_settings = LinkSettings(d.read_termination, d.write_termination, timeout_ms or d.timeout_ms)
+        self.link: Link = open_resource(
+            resource, backend, self._link_settings, error_query=d.commands["next_error"]
+        )
+        self.resource = self.link.resource
+        self.settings: SweepSettings | None = None
+        self._power_limit_dbm: float | None = None
+        self.ascii_data = False
+        try:
+            self.idn = self.identify()
+        except Exception:
+            self.link.close()
+            raise
+
+    # -- protocol
+
+    def identify(self) -> str:
+        """The instrument's identity string (``*IDN?`` in the generic dialect)."""
+        return self.link.query(self.dialect.command("identify"))
+
+    def reset(self) -> None:
+        """Reset to the instrument's defaults and clear its status and error queue."""
+        self.link.command(self.dialect.command("reset"))
+        if self.dialect.has("clear_status"):
+            self.link.command(self.dialect.command("clear_status"))
+        self._wait_complete()
+        self.settings = None
+
+    def configure(self, settings: SweepSettings, power_limit_dbm: float) -> None:
+        """Apply a linear sweep (Hz, points, IF bandwidth Hz, power dBm).
+
+        The power check happens before any command is sent.
+        """
+        check_power(settings, power_limit_dbm)
+        check_settings(settings)
+        d, link = self.dialect, self.link
+        link.command(d.command("set_start_hz", hz=settings.start_hz))
+        link.command(d.command("set_stop_hz", hz=settings.stop_hz))
+        link.command(d.command("set_points", n=settings.points))
+        link.command(d.command("set_ifbw_hz", hz=settings.ifbw_hz))
+        link.command(d.command("set_power_dbm", dbm=settings.power_dbm))
+        self._set_data_format()
+        self.settings = settings
+        self._power_limit_dbm = power_limit_dbm
+
+    def sweep(self, ports: int = 2) -> skrf.Network:
+        """Trigger one sweep, wait for it, fetch S for ``ports`` (1 or 2) ports."""
+        if ports not in (1, 2):
+            raise ValueError(f"ports must be 1 or 2, got {ports}")
+        if self.settings is None:
+            raise DriverError(f"{self.resource}: configure() the VNA before the first sweep", resource=self.resource)
+        d, link = self.dialect, self.link
+        if d.has("set_ports"):
+            link.command(d.command("set_ports", ports=",".join(str(p) for p in range(1, ports + 1))))
+        link.command(d.command("trigger_single"))
+        self._wait_complete(self._sweep_timeout_ms(ports))
+        order = d.data_order[ports]
+        fetch = d.command("fetch_sparams")
+        values = link.query_values(fetch, d.byte_order)
+        link.check_errors(fetch)
+        f = self._frequencies()
+        s = sparams_from_values(values, f.size, order)
+        return skrf.Network(frequency=skrf.Frequency.from_f(f, unit="Hz"), s=s, z0=Z0_OHM, name="sweep")
+
+    def close(self) -> None:
+        self.link.close()
+
+    def reopen(self) -> None:
+        """Open the connection again (after a timeout or a drop) and re-apply settings."""
+        self.link.reopen()
+        self.idn = self.identify()
+        if self.settings is not None and self._power_limit_dbm is not None:
+            self.configure(self.settings, self._power_limit_dbm)
+
+    # -- helpers
+
+    def _wait_complete(self, timeout_ms: int | None = None) -> None:
+        cmd = self.dialect.command("wait_complete")
+        reply = self.link.query(cmd, timeout_ms=timeout_ms)
+        if reply.strip() not in ("1", "+1"):
+            raise ReplyError(f"{self.resource}: {cmd!r} answered {reply!r}, expected 1", resource=self.resource)
+        self.link.check_errors(cmd)
+
+    def _sweep_timeout_ms(self, ports: int) -> int:
+        # Rough sweep time: points / IFBW per receiver pass, one pass per driven port,
+        # doubled for retrace and settling; never below the I/O timeout.
+        s = self.settings
+        est_ms = 2.0 * ports * s.points / s.ifbw_hz * 1000.0
+        return int(max(self._link_settings.timeout_ms, self._link_settings.timeout_ms + est_ms))
+
+    def _set_data_format(self) -> None:
+        d, link = self.dialect, self.link
+        self.ascii_data = False
+        if d.has("format_binary"):
+            try:
+                link.command(d.command("format_binary"))
+            except InstrumentError:
+                if not d.has("format_ascii"):
+                    raise
+                self.ascii_data = True
+        elif d.has("format_ascii"):
+            self.ascii_data = True
+        if self.ascii_data:
+            link.command(d.command("format_ascii"))
+            return
+        op = f"byte_order_{d.byte_order}"
+        if d.has(op):
+            link.command(d.command(op))
+
+    def _frequencies(self) -> np.ndarray:
+        s = self.settings
+        if self.dialect.has("fetch_frequencies"):
+            cmd = self.dialect.command("fetch_frequencies")
+            f = self.link.query_values(cmd, self.dialect.byte_order)
+            self.link.check_errors(cmd)
+            if f.size < 2 or np.any(np.diff(f) <= 0):
+                raise ReplyError(f"{self.resource}: {cmd!r} returned {f.size} frequencies that do not increase")
+            return f
+        return np.linspace(s.start_hz, s.stop_hz, s.points)
