@@ -159,6 +159,24 @@ def _network_s_50(ntwk: skrf.Network) -> tuple[np.ndarray, float]:
     return ntwk.s, float(ref.real)
 
 
+def metrics_from_s(
+    f_hz: np.ndarray, s: np.ndarray, length_m: float, eps_eff_guess: float | None = None, z0_ref: float = 50.0
+) -> LineMetrics:
+    """Z0, gamma and RLGC of a uniform line from its S (n_freq, 2, 2) referenced
+    to a real ``z0_ref`` (ohm); ``length_m`` in metres. See :func:`line_metrics`."""
+    if length_m <= 0:
+        raise ValueError(f"line length must be positive, got {length_m} m")
+    f_hz = np.asarray(f_hz, dtype=float)
+    abcd = abcd_from_s(s, z0_ref)
+    a_mean = 0.5 * (abcd[:, 0, 0] + abcd[:, 1, 1])
+    root = np.sqrt(a_mean**2 - 1.0)
+    egl = np.where(np.abs(a_mean + root) >= np.abs(a_mean - root), a_mean + root, a_mean - root)
+    gl = _branch(np.log(egl), f_hz, length_m, eps_eff_guess)
+    z0 = np.sqrt(abcd[:, 0, 1] / abcd[:, 1, 0])
+    z0 = np.where(z0.real < 0, -z0, z0)
+    return LineMetrics(f_hz=f_hz, z0=z0, gamma=gl / length_m)
+
+
 def line_metrics(ntwk: skrf.Network, length_m: float, eps_eff_guess: float | None = None) -> LineMetrics:
     """Z0, gamma and RLGC of a uniform line measured as a 2-port of ``length_m``.
 
@@ -167,17 +185,8 @@ def line_metrics(ntwk: skrf.Network, length_m: float, eps_eff_guess: float | Non
     :func:`gamma_two_lines` then). A' = (A + D)/2, e^{gl} = A' +- sqrt(A'^2 - 1)
     with |e^{gl}| > 1; Z0 = sqrt(B / C) with Re Z0 > 0 (Pozar 4th ed. ch. 2).
     """
-    if length_m <= 0:
-        raise ValueError(f"line length must be positive, got {length_m} m")
     s, ref = _network_s_50(ntwk)
-    abcd = abcd_from_s(s, ref)
-    a_mean = 0.5 * (abcd[:, 0, 0] + abcd[:, 1, 1])
-    root = np.sqrt(a_mean**2 - 1.0)
-    egl = np.where(np.abs(a_mean + root) >= np.abs(a_mean - root), a_mean + root, a_mean - root)
-    gl = _branch(np.log(egl), ntwk.f, length_m, eps_eff_guess)
-    z0 = np.sqrt(abcd[:, 0, 1] / abcd[:, 1, 0])
-    z0 = np.where(z0.real < 0, -z0, z0)
-    return LineMetrics(f_hz=np.asarray(ntwk.f, dtype=float), z0=z0, gamma=gl / length_m)
+    return metrics_from_s(ntwk.f, s, length_m, eps_eff_guess, ref)
 
 
 def gamma_two_lines(

@@ -1,0 +1,523 @@
+"""Quick checks on one sweep (or a sweep and an earlier one of the same site).
+
+Every check is a pure function of arrays returning a
+:class:`probelog.verdicts.CheckResult`: the measured figure, its limit, the
+frequency (Hz) where it is worst and one sentence a person understands.
+S arrays are shaped (n_freq, n_ports, n_ports) like ``skrf.Network.s``;
+frequencies in Hz; dB = 20 log10|S|; phases in degrees; time convention
+e^{+j omega t}.
+
+Port conventions: every site is measured as a 2-port. Reflect-type sites
+(open, short, load, open-stub, short-stub) are pairs: port 1 and port 2 each
+land on their own copy of the one-port and S21 is isolation, so one-port
+figures are taken on S11 and S22 separately and the worse one is reported. A
+1-port sweep works as well.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, fields, replace
+from typing import Any, Mapping
+
+import numpy as np
+
+from probelog.lines import C0, metrics_from_s
+from probelog.verdicts import CheckResult, Verdict
+
+KINDS = ("open", "short", "load", "thru", "line", "open-stub", "short-stub", "device")
+REFLECT_KINDS = frozenset({"open", "short", "load", "open-stub", "short-stub"})
+ROTATING_KINDS = frozenset({"open", "short", "open-stub", "short-stub"})
+CHECK_NAMES = (
+    "contact",
+    "passivity",
+    "reciprocity",
+    "symmetry",
+    "rotation",
+    "line-window",
+    "repeatability",
+    "drift",
+)
+
+
+@dataclass(frozen=True)
+class Limits:
+    """Check limits; each default is a starting point a plan may override.
+
+    Sources: REFERENCES.md "Trade numbers" (common practice, no source) unless
+    a line says otherwise. "warn" and "fail" are the thresholds at which a
+    figure turns to WARN and FAIL.
+    """
+
+    # contact
+    contact_low_hz: float = 10e9  # band where pads and probe inductance barely matter; common practice, no source
+    match_warn_db: float = -15.0  # matched site return loss > 15 dB (trade numbers: probe return loss > 15 dB)
+    match_fail_db: float = -3.0  # a tip in air reads within 0.1-0.3 dB of 0 dB (trade numbers)
+    transmission_fail_db: float = -10.0  # a lifted tip leaves |S21| near -40 dB (trade numbers); lines lose far less
+    short_r_warn_ohm: float = 0.5  # contact resistance 0.1-0.5 ohm on aluminium after scrub (trade numbers)
+    short_r_fail_ohm: float = 1.0  # bad > 1 ohm (trade numbers)
+    stub_rotation_warn_ratio: float = 0.8  # common practice, no source
+    stub_rotation_fail_ratio: float = 0.5  # common practice, no source
+    # passivity: excess of the largest singular value over 1; trace noise 0.001-0.005 dB rms
+    # is 1.2e-4-5.8e-4 in |S| (trade numbers), so these are many sigma away
+    passivity_warn: float = 0.005
+    passivity_fail: float = 0.02
+    # reciprocity and symmetry: |dS| linear; landing repeatability |dS11| ~0.005-0.01 (trade numbers)
+    reciprocity_warn: float = 0.01
+    reciprocity_fail: float = 0.03
+    symmetry_warn: float = 0.02
+    symmetry_fail: float = 0.05
+    # rotation: largest counter-clockwise excursion of the unwrapped phase, degrees;
+    # phase trace noise 0.01-0.05 deg rms (trade numbers) -> peak-to-peak well under 0.5 deg
+    rotation_warn_deg: float = 0.5
+    rotation_fail_deg: float = 2.0
+    # repeatability vs the previous landing (trade numbers: |S21| +-0.02-0.05 dB,
+    # phase +-0.2-0.5 deg, ~1 deg at 110 GHz, |dS11| ~0.005-0.01)
+    repeat_floor_db: float = -20.0  # dB and phase only where both |S| exceed this; common practice, no source
+    repeat_db_warn: float = 0.05
+    repeat_db_fail: float = 0.15
+    repeat_deg_warn: float = 0.5
+    repeat_deg_fail: float = 2.0
+    repeat_mag_warn: float = 0.01
+    repeat_mag_fail: float = 0.03
+    # drift vs the reference sweep right after calibration (trade numbers: over an hour
+    # |S21| 0.01-0.05 dB, phase 0.1-1 deg at 50-110 GHz)
+    drift_db_warn: float = 0.05
+    drift_db_fail: float = 0.15
+    drift_deg_warn: float = 1.0
+    drift_deg_fail: float = 3.0
+    drift_mag_warn: float = 0.01
+    drift_mag_fail: float = 0.03
+    # line window: skip points near a half-wavelength, where Z0 = sqrt(B/C) is 0/0;
+    # common practice, no source
+    line_min_sinh: float = 0.1
+
+    @classmethod
+    def from_mapping(cls, d: Mapping[str, Any], source: str) -> "Limits":
+        """Defaults overridden by ``d``; unknown keys and non-numbers are refused
+        with a ValueError naming ``source`` (a file and table) and the key."""
+        known = {f.name for f in fields(cls)}
+        changes: dict[str, float] = {}
+        for key, value in d.items():
+            if key not in known:
+                raise ValueError(f"{source}: unknown limit '{key}' (known: {', '.join(sorted(known))})")
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not np.isfinite(value):
+                raise ValueError(f"{source}: limit '{key}' must be a finite number, got {value!r}")
+            changes[key] = float(value)
+        return replace(cls(), **changes)
+
+
+# ---------------------------------------------------------------- helpers
+
+
+def _ghz(f_hz: float) -> str:
+    return f"{f_hz / 1e9:.4g} GHz"
+
+
+def _db(x: np.ndarray) -> np.ndarray:
+    return 20.0 * np.log10(np.maximum(np.abs(x), 1e-15))  # floor at -300 dB keeps exact zeros finite
+
+
+def _grade(value: float, warn: float | None, fail: float) -> Verdict:
+    """Higher is worse."""
+    if np.isnan(value) or value > fail:
+        return Verdict.FAIL
+    if warn is not None and value > warn:
+        return Verdict.WARN
+    return Verdict.PASS
+
+
+def _diag(s: np.ndarray) -> np.ndarray:
+    """Reflection of each port, shape (n_freq, n_ports)."""
+    return np.diagonal(s, axis1=1, axis2=2)
+
+
+def _result(name, verdict, value, limit, at_hz, message, unit="") -> CheckResult:
+    def num(x):
+        return None if x is None or not np.isfinite(x) else float(x)
+
+    return CheckResult(name, verdict, num(value), num(limit), num(at_hz), message, unit)
+
+
+def _na(name: str, message: str) -> CheckResult:
+    return CheckResult(name, Verdict.NA, None, None, None, message)
+
+
+def _worst(results: list[CheckResult]) -> CheckResult:
+    return max(results, key=lambda r: r.verdict.rank)  # first of the worst on ties
+
+
+def _low_band(f_hz: np.ndarray, limits: Limits) -> np.ndarray:
+    mask = f_hz <= limits.contact_low_hz
+    if not mask.any():
+        mask = f_hz <= f_hz[0]
+    return mask
+
+
+# ---------------------------------------------------------------- contact
+
+
+def _reads_as(f_hz: np.ndarray, gamma: np.ndarray, want_short: bool) -> CheckResult | None:
+    """FAIL when a port's lowest-frequency reflection has the wrong sign of Re(S):
+    a short (S ~ -1) that reads as an open (S ~ +1), or the other way round."""
+    re0 = gamma[0].real
+    bad = re0 > 0 if want_short else re0 < 0
+    if not bad.any():
+        return None
+    port = int(np.argmax(re0 if want_short else -re0))
+    expected, found = ("short", "an open") if want_short else ("open", "a short")
+    return _result(
+        "contact",
+        Verdict.FAIL,
+        re0[port],
+        0.0,
+        f_hz[0],
+        f"port {port + 1} should read as a {expected} but reads as {found} "
+        f"(Re S{port + 1}{port + 1} = {re0[port]:+.3f} at {_ghz(f_hz[0])}): is the tip down?",
+    )
+
+
+def _short_resistance(f_hz, gamma, z0, limits) -> CheckResult:
+    low = _low_band(f_hz, limits)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = (z0 * (1 + gamma[low]) / (1 - gamma[low])).real
+    r_med = np.median(r, axis=0)
+    port = int(np.argmax(r_med))
+    value = float(r_med[port])
+    verdict = _grade(value, limits.short_r_warn_ohm, limits.short_r_fail_ohm)
+    words = {Verdict.PASS: "good contact", Verdict.WARN: "contact resistance is high", Verdict.FAIL: "contact resistance too high"}
+    return _result(
+        "contact",
+        verdict,
+        value,
+        limits.short_r_fail_ohm,
+        f_hz[low][-1],
+        f"{words[verdict]}: Re(Z) of the short on port {port + 1} is {value:.3f} ohm "
+        f"(median up to {_ghz(f_hz[low][-1])}); re-land with more scrub if it stays high",
+        "ohm",
+    )
+
+
+def _match(f_hz, gamma, mask, warn_db, fail_db, what) -> CheckResult:
+    db = _db(gamma[mask])
+    i, port = np.unravel_index(int(np.nanargmax(np.where(np.isnan(db), np.inf, db))), db.shape)
+    value = float(db[i, port])
+    verdict = _grade(value, warn_db, fail_db)
+    at = f_hz[mask][i]
+    if verdict is Verdict.FAIL:
+        msg = f"port {port + 1} reflects like an open on a {what} (|S{port + 1}{port + 1}| = {value:.2f} dB at {_ghz(at)}): a tip is lifted or skated off"
+    elif verdict is Verdict.WARN:
+        msg = f"port {port + 1} is poorly matched on a {what} (|S{port + 1}{port + 1}| = {value:.2f} dB at {_ghz(at)}): check the landing"
+    else:
+        msg = f"both tips see the {what} (worst |Sii| {value:.2f} dB at {_ghz(at)})"
+    return _result("contact", verdict, value, fail_db, at, msg, "dB")
+
+
+def _transmission(f_hz, s, mask, limits) -> CheckResult:
+    db = _db(s[mask][:, 1, 0])
+    i = int(np.argmin(np.where(np.isnan(db), -np.inf, db)))
+    value = float(db[i])
+    at = f_hz[mask][i]
+    if not value >= limits.transmission_fail_db:
+        return _result("contact", Verdict.FAIL, value, limits.transmission_fail_db, at,
+                       f"almost nothing gets through (|S21| = {value:.2f} dB at {_ghz(at)}): a tip is not down", "dB")
+    return _result("contact", Verdict.PASS, value, limits.transmission_fail_db, at,
+                   f"signal passes (lowest |S21| {value:.2f} dB up to {_ghz(f_hz[mask][-1])})", "dB")
+
+
+def _stub_rotation(f_hz, gamma, length_m, eps_lo, limits) -> CheckResult:
+    """Total clockwise turn of each port over the sweep vs the least a landed
+    stub must turn: 2 * 360 * df * l * sqrt(eps_lo) / c degrees."""
+    phase = np.degrees(np.unwrap(np.angle(gamma), axis=0))
+    turned = phase[0] - phase[-1]  # clockwise is positive
+    port = int(np.argmin(turned))
+    value = float(turned[port])
+    expected = 2.0 * 360.0 * (f_hz[-1] - f_hz[0]) * length_m * np.sqrt(eps_lo) / C0
+    fail_at = limits.stub_rotation_fail_ratio * expected
+    warn_at = limits.stub_rotation_warn_ratio * expected
+    if value < fail_at:
+        verdict, word = Verdict.FAIL, "too little rotation: the tip is probably not on the stub"
+    elif value < warn_at:
+        verdict, word = Verdict.WARN, "less rotation than the stub should give"
+    else:
+        verdict, word = Verdict.PASS, "stub rotation as expected"
+    return _result(
+        "contact", verdict, value, fail_at, f_hz[-1],
+        f"{word} (port {port + 1} turns {value:.1f} deg clockwise up to {_ghz(f_hz[-1])}, "
+        f"a {length_m * 1e6:.0f} um stub needs at least {expected:.1f} deg)",
+        "deg",
+    )
+
+
+def contact(
+    f_hz: np.ndarray,
+    s: np.ndarray,
+    kind: str,
+    limits: Limits,
+    expectation: Mapping[str, Any] | None = None,
+    z0: float = 50.0,
+) -> CheckResult:
+    """Does the reflection (and transmission) look like the kind, or like tips in air?
+
+    - open, device: N/A (tips in air look like an open; a device has no generic signature).
+    - load: worst |Sii| over the sweep, warn above ``match_warn_db``, fail above ``match_fail_db``.
+    - thru: as load, plus |S21| over the low band above ``transmission_fail_db``.
+    - line: low band only, fail only (a line need not be 50 ohm), plus |S21|.
+    - short: Re(Sii) at the lowest frequency must be < 0, then the median Re(Z) over
+      the low band (f <= ``contact_low_hz``) is the contact resistance (ohm).
+    - open-stub / short-stub: must read as open / short at the lowest frequency, and
+      turn clockwise by at least a fraction of 2 beta l (with eps_eff at the low end of
+      the plan's window, or 1 when unknown) over the sweep; needs ``length_um``.
+    ``z0`` is the port reference impedance (ohm).
+    """
+    expectation = expectation or {}
+    f_hz = np.asarray(f_hz, dtype=float)
+    gamma = _diag(s)
+    if kind == "open":
+        return _na("contact", "cannot judge contact on an open: tips in air also read as an open")
+    if kind == "device":
+        return _na("contact", "no generic reflection signature for a device: judge contact on a reference site")
+    if kind == "short":
+        return _reads_as(f_hz, gamma, want_short=True) or _short_resistance(f_hz, gamma, z0, limits)
+    if kind == "load":
+        return _match(f_hz, gamma, np.ones(f_hz.shape, bool), limits.match_warn_db, limits.match_fail_db, "load")
+    if kind in ("thru", "line"):
+        if s.shape[1] < 2:
+            return _na("contact", f"a {kind} needs a 2-port sweep, got a 1-port")
+        low = _low_band(f_hz, limits)
+        if kind == "thru":
+            refl = _match(f_hz, gamma, np.ones(f_hz.shape, bool), limits.match_warn_db, limits.match_fail_db, "thru")
+        else:
+            refl = _match(f_hz, gamma, low, None, limits.match_fail_db, "line")
+        return _worst([refl, _transmission(f_hz, s, low, limits)])
+    if kind in ("open-stub", "short-stub"):
+        wrong = _reads_as(f_hz, gamma, want_short=kind == "short-stub")
+        if wrong is not None:
+            return wrong
+        length_um = expectation.get("length_um")
+        if length_um is None:
+            return _na("contact", f"the {kind} reads right at {_ghz(f_hz[0])}; rotation not judged without length_um")
+        eps_lo = float(expectation.get("eps_eff_window", [1.0])[0])
+        return _stub_rotation(f_hz, gamma, float(length_um) * 1e-6, max(eps_lo, 1.0), limits)
+    raise ValueError(f"unknown site kind '{kind}' (known: {', '.join(KINDS)})")
+
+
+# ---------------------------------------------------------------- passivity, reciprocity, symmetry
+
+
+def passivity(f_hz: np.ndarray, s: np.ndarray, limits: Limits) -> CheckResult:
+    """Largest singular value of S over frequency: passive iff <= 1 everywhere
+    (I - S^H S positive semidefinite). Value is sigma_max, limit 1 + ``passivity_fail``."""
+    sigma = np.linalg.svd(s, compute_uv=False)[:, 0]
+    i = int(np.argmax(np.where(np.isnan(sigma), np.inf, sigma)))
+    value = float(sigma[i])
+    verdict = _grade(value - 1.0, limits.passivity_warn, limits.passivity_fail)
+    if verdict is Verdict.PASS:
+        msg = f"passive: largest singular value {value:.4f} at {_ghz(f_hz[i])}"
+    else:
+        msg = (f"gives out more power than it takes in: largest singular value {value:.4f} at {_ghz(f_hz[i])} "
+               "(calibration, port mapping or instrument problem)")
+    return _result("passivity", verdict, value, 1.0 + limits.passivity_fail, f_hz[i], msg)
+
+
+def _pair_difference(name, f_hz, a, b, warn, fail, ok_msg, bad_msg) -> CheckResult:
+    d = np.abs(a - b)
+    i = int(np.argmax(np.where(np.isnan(d), np.inf, d)))
+    value = float(d[i])
+    verdict = _grade(value, warn, fail)
+    msg = (ok_msg if verdict is Verdict.PASS else bad_msg).format(v=value, f=_ghz(f_hz[i]))
+    return _result(name, verdict, value, fail, f_hz[i], msg)
+
+
+def reciprocity(f_hz: np.ndarray, s: np.ndarray, limits: Limits) -> CheckResult:
+    """max over frequency of |S21 - S12| (linear); a passive site is reciprocal (S = S^T)."""
+    if s.shape[1] < 2:
+        return _na("reciprocity", "a 1-port has nothing to compare")
+    return _pair_difference(
+        "reciprocity", f_hz, s[:, 1, 0], s[:, 0, 1], limits.reciprocity_warn, limits.reciprocity_fail,
+        "reciprocal: max |S21 - S12| = {v:.4f} at {f}",
+        "not reciprocal: |S21 - S12| = {v:.4f} at {f} (ports swapped, switch terms or calibration)",
+    )
+
+
+def symmetry(f_hz: np.ndarray, s: np.ndarray, limits: Limits) -> CheckResult:
+    """max over frequency of |S11 - S22| (linear), for sites that are the same seen from both ports."""
+    if s.shape[1] < 2:
+        return _na("symmetry", "a 1-port has nothing to compare")
+    return _pair_difference(
+        "symmetry", f_hz, s[:, 0, 0], s[:, 1, 1], limits.symmetry_warn, limits.symmetry_fail,
+        "both ports agree: max |S11 - S22| = {v:.4f} at {f}",
+        "the ports disagree: |S11 - S22| = {v:.4f} at {f} (one bad tip or a skated ground)",
+    )
+
+
+# ---------------------------------------------------------------- rotation
+
+
+def rotation(f_hz: np.ndarray, s: np.ndarray, limits: Limits) -> CheckResult:
+    """Foster's reactance theorem (Foster, Bell Syst. Tech. J. 3, 1924): a
+    lossless passive one-port turns clockwise on the Smith chart, so the
+    unwrapped phase of Sii falls with frequency. Value: the largest rise of the
+    phase over any span (degrees, counter-clockwise), worst port. Apply to
+    opens, shorts and stubs only."""
+    f_hz = np.asarray(f_hz, dtype=float)
+    phase = np.degrees(np.unwrap(np.angle(_diag(s)), axis=0))
+    rise = phase - np.minimum.accumulate(phase, axis=0)
+    end, port = np.unravel_index(int(np.argmax(rise)), rise.shape)
+    value = float(rise[end, port])
+    start = int(np.argmin(phase[: end + 1, port]))
+    verdict = _grade(value, limits.rotation_warn_deg, limits.rotation_fail_deg)
+    if verdict is Verdict.PASS:
+        msg = f"turns clockwise (largest counter-clockwise excursion {value:.3f} deg)"
+    else:
+        msg = (f"port {port + 1} turns counter-clockwise by {value:.3f} deg from {_ghz(f_hz[start])} to "
+               f"{_ghz(f_hz[end])}: reference plane beyond the standard, over-specified open C / short L, "
+               "or a coarse frequency step")
+    return _result("rotation", verdict, value, limits.rotation_fail_deg, f_hz[end], msg, "deg")
+
+
+# ---------------------------------------------------------------- line window
+
+
+def line_window(
+    f_hz: np.ndarray, s: np.ndarray, expectation: Mapping[str, Any], limits: Limits, z0_ref: float = 50.0
+) -> CheckResult:
+    """Re(Z0) (ohm), alpha (dB/mm) and eps_eff from :func:`probelog.lines.metrics_from_s`
+    inside the plan's windows (``z0_window_ohm``, ``alpha_db_per_mm_max``,
+    ``eps_eff_window``) at every frequency, skipping points within
+    |sinh(gamma l)| < ``line_min_sinh`` of a half-wavelength. Reports the window
+    missed by the most (relative to its size), or the closest call."""
+    if s.shape[1] < 2:
+        return _na("line-window", "line metrics need a 2-port sweep")
+    length_um = expectation.get("length_um")
+    if length_um is None:
+        return _na("line-window", "no length_um for this site: line metrics not judged")
+    windows = []
+    if "z0_window_ohm" in expectation:
+        lo, hi = (float(x) for x in expectation["z0_window_ohm"])
+        windows.append(("Re Z0", "ohm", lo, hi))
+    if "eps_eff_window" in expectation:
+        lo, hi = (float(x) for x in expectation["eps_eff_window"])
+        windows.append(("eps_eff", "", lo, hi))
+    if "alpha_db_per_mm_max" in expectation:
+        windows.append(("alpha", "dB/mm", 0.0, float(expectation["alpha_db_per_mm_max"])))
+    if not windows:
+        return _na("line-window", "no window for this site in the plan")
+    eps_guess = None
+    if "eps_eff_window" in expectation:
+        eps_guess = 0.5 * sum(float(x) for x in expectation["eps_eff_window"])
+    length_m = float(length_um) * 1e-6
+    with np.errstate(all="ignore"):
+        m = metrics_from_s(f_hz, s, length_m, eps_guess, z0_ref)
+        usable = np.abs(np.sinh(m.gamma * length_m)) >= limits.line_min_sinh
+    if not usable.any():
+        return _na("line-window", "no frequency point away from a half-wavelength resonance")
+    figures = {"Re Z0": m.z0.real, "eps_eff": m.eps_eff, "alpha": m.alpha_db_per_mm}
+    best = None  # (margin relative to window size, name, unit, value, limit, f)
+    f_use = np.asarray(f_hz, dtype=float)[usable]
+    for name, unit, lo, hi in windows:
+        x = figures[name][usable]
+        x = np.where(np.isfinite(x), x, np.inf)
+        below, above = lo - x, x - hi  # > 0 means outside
+        size = max(hi - lo, 1e-30)
+        if name == "alpha":
+            below = np.full_like(x, -np.inf)
+        i_lo, i_hi = int(np.argmax(below)), int(np.argmax(above))
+        if below[i_lo] >= above[i_hi]:
+            cand = (below[i_lo] / size, name, unit, x[i_lo], lo, f_use[i_lo])
+        else:
+            cand = (above[i_hi] / size, name, unit, x[i_hi], hi, f_use[i_hi])
+        if best is None or cand[0] > best[0]:
+            best = cand
+    margin, name, unit, value, limit, at = best
+    u = f" {unit}" if unit else ""
+    if margin > 0:
+        return _result("line-window", Verdict.FAIL, value, limit, at,
+                       f"{name} = {value:.4g}{u} at {_ghz(at)} is outside the window edge {limit:.4g}{u}: "
+                       "wrong site, damaged line or wrong calibration", unit)
+    return _result("line-window", Verdict.PASS, value, limit, at,
+                   f"inside the plan's windows (closest: {name} = {value:.4g}{u} at {_ghz(at)}, edge {limit:.4g}{u})", unit)
+
+
+# ---------------------------------------------------------------- repeatability and drift
+
+
+def _compare(name, f_hz, s, f_other, s_other, floor_db, lims, against) -> CheckResult:
+    """Largest |dS| (linear), |d dB| and |d phase| (degrees) between two sweeps of
+    the same site; dB and phase only where both |S| exceed ``floor_db``.
+    ``lims`` = (db_warn, db_fail, deg_warn, deg_fail, mag_warn, mag_fail)."""
+    if s.shape != s_other.shape or not np.allclose(f_hz, f_other, rtol=1e-9, atol=0.0):
+        return _na(name, f"{against} was taken on another frequency grid or port count: not compared")
+    db_w, db_f, deg_w, deg_f, mag_w, mag_f = lims
+    floor = 10.0 ** (floor_db / 20.0)
+    big = (np.abs(s) > floor) & (np.abs(s_other) > floor)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        d_mag = np.abs(s - s_other)
+        d_db = np.where(big, np.abs(_db(s) - _db(s_other)), 0.0)
+        d_deg = np.where(big, np.abs(np.degrees(np.angle(s / s_other))), 0.0)
+    parts = []
+    for arr, warn, fail, unit, label in ((d_db, db_w, db_f, "dB", "|S| in dB"), (d_deg, deg_w, deg_f, "deg", "phase"),
+                                         (d_mag, mag_w, mag_f, "", "|dS|")):
+        arr = np.where(np.isnan(arr), np.inf, arr)
+        k, i, j = np.unravel_index(int(np.argmax(arr)), arr.shape)
+        v = float(arr[k, i, j])
+        parts.append((_grade(v, warn, fail).rank, v / fail, v, fail, f_hz[k], f"S{i + 1}{j + 1}", unit, label))
+    text = ", ".join(f"{p[7]} {p[2]:.3g}{' ' + p[6] if p[6] else ''} ({p[5]} at {_ghz(p[4])})" for p in parts)
+    rank, _, value, limit, at, _, unit, _ = max(parts, key=lambda p: (p[0], p[1]))
+    verdict = {1: Verdict.PASS, 2: Verdict.WARN, 3: Verdict.FAIL}[rank]
+    lead = {Verdict.PASS: "agrees with", Verdict.WARN: "moved from", Verdict.FAIL: "differs from"}[verdict]
+    return _result(name, verdict, value, limit, at, f"{lead} {against}: largest {text}", unit)
+
+
+def repeatability(f_hz, s, f_prev, s_prev, limits: Limits) -> CheckResult:
+    """Difference to the previous landing on the same site (skating, worn tips)."""
+    lims = (limits.repeat_db_warn, limits.repeat_db_fail, limits.repeat_deg_warn, limits.repeat_deg_fail,
+            limits.repeat_mag_warn, limits.repeat_mag_fail)
+    return _compare("repeatability", np.asarray(f_hz, float), s, np.asarray(f_prev, float), s_prev,
+                    limits.repeat_floor_db, lims, "the previous landing")
+
+
+def drift(f_hz, s, f_ref, s_ref, limits: Limits) -> CheckResult:
+    """Difference to the reference sweep of this site taken right after calibration."""
+    lims = (limits.drift_db_warn, limits.drift_db_fail, limits.drift_deg_warn, limits.drift_deg_fail,
+            limits.drift_mag_warn, limits.drift_mag_fail)
+    return _compare("drift", np.asarray(f_hz, float), s, np.asarray(f_ref, float), s_ref,
+                    limits.repeat_floor_db, lims, "the reference taken after calibration")
+
+
+# ---------------------------------------------------------------- all checks of a kind
+
+
+def is_symmetric(kind: str, expectation: Mapping[str, Any] | None) -> bool:
+    """Whether S11 and S22 should agree: the plan's ``symmetric`` if given, else
+    True for every kind but ``device`` (reflect pairs are two copies of one standard)."""
+    if expectation and "symmetric" in expectation:
+        return bool(expectation["symmetric"])
+    return kind != "device"
+
+
+def run_checks(ntwk, kind: str, limits: Limits, expectation: dict | None = None, previous=None, reference=None) -> list[CheckResult]:
+    """Every check that applies to ``kind`` on one sweep (an ``skrf.Network``).
+
+    ``previous`` and ``reference`` are Networks of the same site (previous
+    landing; reference right after calibration) or None. Order follows
+    :data:`CHECK_NAMES`.
+    """
+    if kind not in KINDS:
+        raise ValueError(f"unknown site kind '{kind}' (known: {', '.join(KINDS)})")
+    expectation = expectation or {}
+    f, s = np.asarray(ntwk.f, dtype=float), ntwk.s
+    z0 = float(np.real(np.asarray(ntwk.z0).flat[0]))
+    out = [contact(f, s, kind, limits, expectation, z0), passivity(f, s, limits)]
+    if ntwk.nports >= 2:
+        out.append(reciprocity(f, s, limits))
+        if is_symmetric(kind, expectation):
+            out.append(symmetry(f, s, limits))
+    if kind in ROTATING_KINDS:
+        out.append(rotation(f, s, limits))
+    if kind == "line":
+        out.append(line_window(f, s, expectation, limits, z0))
+    if previous is not None:
+        out.append(repeatability(f, s, previous.f, previous.s, limits))
+    if reference is not None:
+        out.append(drift(f, s, reference.f, reference.s, limits))
+    return out
