@@ -2,3 +2,12 @@
 journal, session engine, export). No UI and no instrument I/O live here."""
 
 __version__ = "0.1.0"
+
+
+def __getattr__(name: str):
+    # Lazy so `import probelog` stays light (no scikit-rf until an analyst asks).
+    if name == "open_session":
+        from probelog.opening import open_session
+
+        return open_session
+    raise AttributeError(f"module 'probelog' has no attribute {name!r}")

@@ -1,0 +1,257 @@
+"""The analyst bundle: ``export_bundle(session_dir, out_dir)``.
+
+A bundle is a folder an analyst can take away and trust without probelog:
+
+- ``manifest.csv``: one row per kept sweep (see probelog.manifest)
+- ``data/``: the session's Touchstone tree and calibration data, same layout
+- ``journal.jsonl``: the journal, byte for byte
+- ``README.md``: what is where, what every column means, the journal's last hash
+- ``report.html``: self-contained report with embedded plots (probelog.report)
+
+Every file is hashed while it is copied, and each row's journaled SHA-256 is
+compared with the copy, so the manifest says whether the bundle is what the
+bench wrote. Each Touchstone file is parsed at most once.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from contextlib import nullcontext
+from pathlib import Path
+from typing import Any, Callable
+
+from probelog.manifest import (
+    JOURNAL_NAME,
+    SessionFormatError,
+    SessionIndex,
+    add_metric_columns,
+    chain_status,
+    index_session,
+    read_journal,
+    readme_text,
+    write_manifest_csv,
+)
+
+LINE_KINDS = {"line", "thru"}
+
+
+class BundleError(ValueError):
+    """The bundle cannot be written where asked (one sentence, names the path)."""
+
+
+def default_out_dir(session_dir: Path) -> Path:
+    """Where a bundle goes when no --out is given: ``<session>-bundle`` beside it."""
+    session_dir = Path(session_dir).resolve()
+    return session_dir.with_name(session_dir.name + "-bundle")
+
+
+def _copy_tree(src: Path, dst: Path, advance: Callable[[], None]) -> dict[str, str]:
+    """Copy every file under ``src`` into folder ``dst`` (keeping ``src``'s own name), hashing
+    the bytes on the way. Returns {posix path relative to src's parent: sha256}."""
+    hashes: dict[str, str] = {}
+    base = src.parent
+    for root, _dirs, files in os.walk(src):
+        for name in sorted(files):
+            s = Path(root) / name
+            rel = s.relative_to(base).as_posix()
+            blob = s.read_bytes()
+            d = dst / rel
+            d.parent.mkdir(parents=True, exist_ok=True)
+            d.write_bytes(blob)
+            hashes[rel] = hashlib.sha256(blob).hexdigest()
+            advance()
+    return hashes
+
+
+def _referenced_files(index: SessionIndex) -> list[tuple[str, str, str]]:
+    """(path, journaled sha256, where) for every file reference in the events."""
+    refs = []
+    events = index.landings + index.cal_events + index.drifts
+    for ev in events:
+        for key, val in ev["payload"].items():
+            if isinstance(val, dict) and "path" in val and "sha256" in val:
+                refs.append((val["path"], val["sha256"], f"seq {ev['seq']} ({ev['type']}) {key}"))
+    return refs
+
+
+def check_files(index: SessionIndex, hashes: dict[str, str]) -> list[str]:
+    """Compare every journaled file reference with the copied file; sets each
+    manifest row's ``files_ok`` and returns one sentence per problem."""
+    problems = []
+    for path, sha, where in _referenced_files(index):
+        got = hashes.get(path)
+        if got is None:
+            problems.append(f"{path}: missing (named by {where})")
+        elif got != sha:
+            problems.append(f"{path}: SHA-256 {got[:12]}... differs from the journaled {sha[:12]}... ({where})")
+    for row in index.rows:
+        ok = True
+        for col in ("raw", "corrected"):
+            path, sha = row[f"{col}_file"], row[f"{col}_sha256"]
+            if path and hashes.get(path) != sha:
+                ok = False
+        row["files_ok"] = int(ok)
+    return problems
+
+
+def _read_network(path: Path):
+    import skrf
+
+    try:
+        return skrf.Network(str(path))
+    except Exception:  # an unreadable file is reported by the caller, not fatal
+        return None
+
+
+def load_networks(index: SessionIndex, root: Path, advance: Callable[[], None]) -> tuple[dict[int, Any], list[str]]:
+    """Parse each kept sweep once: corrected file when there is one, else raw.
+    Returns ({manifest seq: skrf.Network}, problems)."""
+    nets, problems = {}, []
+    for row in index.rows:
+        rel = row["corrected_file"] or row["raw_file"]
+        ntwk = _read_network(root / rel) if rel and (root / rel).is_file() else None
+        if ntwk is None:
+            problems.append(f"{rel or '(no file)'}: could not be read as Touchstone (seq {row['seq']})")
+        else:
+            ntwk.name = f"d{row['die_col']}_{row['die_row']}/{row['site']}/L{row['landing']}"
+            nets[row["seq"]] = ntwk
+        advance()
+    return nets, problems
+
+
+def compute_missing_metrics(index: SessionIndex, networks: dict[int, Any]) -> int:
+    """Line metrics for kept line sweeps that were journaled without them, from
+    ``probelog.lines.line_metrics`` when that module exists. Returns the number of
+    rows filled."""
+    try:
+        from probelog.lines import line_metrics  # type: ignore[attr-defined]
+    except ImportError:
+        return 0
+    from probelog.manifest import flatten_metrics
+
+    names: dict[str, None] = {}
+    filled = 0
+    for row in index.rows:
+        if row.get("kind") not in LINE_KINDS or not row.get("length_um"):
+            continue
+        if any(row.get(c) is not None for c in index.metric_columns):
+            continue
+        ntwk = networks.get(row["seq"])
+        if ntwk is None:
+            continue
+        try:
+            flat = flatten_metrics(metrics_at_report_points(line_metrics, ntwk, row["length_um"] * 1e-6))
+        except Exception:  # a line that cannot be extracted stays empty, like a journaled null
+            continue
+        row.update(flat)
+        names.update(dict.fromkeys(flat))
+        filled += 1
+    add_metric_columns(index, names)
+    return filled
+
+
+def metrics_at_report_points(line_metrics: Callable, ntwk: Any, length_m: float) -> dict:
+    """Call ``line_metrics(network, length_m)`` and keep a few frequencies (a
+    quarter, half and all of the span, snapped to sweep points) so computed
+    columns look like journaled ones."""
+    import numpy as np
+
+    result = line_metrics(ntwk, length_m)
+    table = result.to_json() if hasattr(result, "to_json") else result
+    if isinstance(table, dict) and any(isinstance(v, (list, tuple)) or hasattr(v, "shape") for v in table.values()):
+        f = np.asarray(ntwk.f)
+        picks = sorted({int(np.argmin(np.abs(f - f[-1] * q))) for q in (0.25, 0.5, 1.0)})
+        out: dict[str, list] = {"freq_hz": [float(f[i]) for i in picks]}
+        for k, v in table.items():
+            arr = np.asarray(v)
+            if arr.shape[:1] == f.shape:
+                if np.iscomplexobj(arr):
+                    out[f"{k}_re"] = [float(arr[i].real) for i in picks]
+                    out[f"{k}_im"] = [float(arr[i].imag) for i in picks]
+                else:
+                    out[k] = [float(arr[i]) for i in picks]
+        return out
+    return table
+
+
+def _load_cal_networks(index: SessionIndex, root: Path) -> dict[str, Any]:
+    out = {}
+    for ev in index.cal_events:
+        if ev["type"] != "cal-verification":
+            continue
+        for key in ("corrected", "raw"):
+            ref = ev["payload"].get(key)
+            path = ref.get("path") if isinstance(ref, dict) else ref
+            if path and (root / path).is_file():
+                ntwk = _read_network(root / path)
+                if ntwk is not None:
+                    out[path] = ntwk
+    return out
+
+
+def export_bundle(session_dir: Path | str, out_dir: Path | str | None = None, progress: bool = True,
+                  metric: str | None = None) -> Path:
+    """Write the analyst bundle of a session folder and return its path.
+
+    ``metric`` is the manifest column drawn on the wafer map (default: a line Z0
+    if there are line metrics, else retries). Raises SessionFormatError for a
+    folder that is not a session, BundleError for an unusable ``out_dir`` or an
+    unknown metric.
+    """
+    from probelog.report import ReportInputs, build_report, numeric_columns
+
+    session_dir = Path(session_dir)
+    journal = read_journal(session_dir)
+    out = Path(out_dir) if out_dir is not None else default_out_dir(session_dir)
+    if out.resolve() == session_dir.resolve() or session_dir.resolve() in out.resolve().parents:
+        raise BundleError(f"{out}: the bundle must not go inside the session folder")
+    if out.exists() and (not out.is_dir() or any(out.iterdir())):
+        raise BundleError(f"{out}: exists and is not an empty folder; choose another --out")
+    index = index_session(journal)
+    chain = chain_status(session_dir, journal)
+    data_dir = session_dir / "data"
+    n_files = sum(len(f) for _r, _d, f in os.walk(data_dir)) if data_dir.is_dir() else 0
+
+    bar = _progress(progress)
+    with bar if bar is not None else nullcontext():
+        def task(label: str, total: int) -> Callable[[], None]:
+            if bar is None:
+                return lambda: None
+            tid = bar.add_task(label, total=max(total, 1))
+            return lambda: bar.advance(tid)
+
+        # parse (from the session) and validate before writing anything
+        networks, unread = load_networks(index, session_dir, task("reading sweeps", len(index.rows)))
+        compute_missing_metrics(index, networks)
+        if metric is not None and metric not in numeric_columns(index):
+            raise BundleError(f"--metric {metric}: not a numeric manifest column; "
+                              f"choose one of: {', '.join(numeric_columns(index))}")
+        out.mkdir(parents=True, exist_ok=True)
+        (out / JOURNAL_NAME).write_bytes(journal.path.read_bytes())
+        hashes = _copy_tree(data_dir, out, task("copying data", n_files)) if data_dir.is_dir() else {}
+        integrity = check_files(index, hashes) + unread
+        step = task("writing report", 3)
+        write_manifest_csv(out / "manifest.csv", index)
+        (out / "README.md").write_text(readme_text(index, chain), encoding="utf-8")
+        step()
+        page = build_report(ReportInputs(index, chain, networks, _load_cal_networks(index, out),
+                                         integrity, metric, journal.torn_tail))
+        step()
+        (out / "report.html").write_text(page, encoding="utf-8")
+        step()
+    return out
+
+
+def _progress(enabled: bool):
+    if not enabled:
+        return None
+    from rich.console import Console
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+    return Progress(TextColumn("{task.description:<16}"), BarColumn(), MofNCompleteColumn(),
+                    TimeElapsedColumn(), console=Console(stderr=True), transient=False)
+
+
+__all__ = ["export_bundle", "default_out_dir", "BundleError", "SessionFormatError", "check_files",
+           "load_networks", "compute_missing_metrics"]

@@ -1,0 +1,471 @@
+"""The self-contained HTML report of an analyst bundle.
+
+Every plot is drawn with matplotlib's Agg canvas (no pyplot state, no display)
+and embedded as a base64 PNG, so the single HTML file can be mailed or archived
+and still shows everything. Magnitudes are dB = 20 log10 |S|; frequencies in GHz
+on the axes; die rows counted from 0 at the top of the wafer map.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+import math
+import re
+from collections import Counter, defaultdict
+from dataclasses import dataclass
+from typing import Any, Iterable
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.collections import LineCollection
+from matplotlib.figure import Figure
+
+from probelog.manifest import ChainStatus, SessionIndex, check_column
+
+VERDICT_COLOURS = {"pass": "#2e7d32", "warn": "#ef8f00", "fail": "#c62828", "n/a": "#9e9e9e"}
+ONE_PORT_KINDS = {"open", "short", "load", "open-stub", "short-stub"}
+
+
+@dataclass
+class ReportInputs:
+    """Everything the report draws from. ``networks`` maps a manifest row's
+    ``seq`` to its (corrected, else raw) skrf.Network; ``cal_networks`` maps a
+    journal file path to a Network (verification structures)."""
+
+    index: SessionIndex
+    chain: ChainStatus
+    networks: dict[int, Any]
+    cal_networks: dict[str, Any]
+    integrity: list[str]
+    metric: str | None
+    torn_tail: bool = False
+
+
+# ---------------------------------------------------------------- helpers
+
+
+def _png(fig: Figure, alt: str) -> str:
+    FigureCanvasAgg(fig)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=80)
+    data = base64.b64encode(buf.getvalue()).decode("ascii")
+    return f'<img alt="{html.escape(alt)}" src="data:image/png;base64,{data}">'
+
+
+def _esc(x: Any) -> str:
+    if x is None:
+        return ""
+    if isinstance(x, float):
+        return html.escape(f"{x:.4g}")
+    return html.escape(str(x))
+
+
+def _table(header: Iterable[str], rows: Iterable[Iterable[Any]], cls: str = "") -> str:
+    head = "".join(f"<th>{_esc(h)}</th>" for h in header)
+    body = []
+    for r in rows:
+        cells = []
+        for v in r:
+            if isinstance(v, str) and v in VERDICT_COLOURS:
+                cells.append(f'<td class="v-{v.replace("/", "")}">{_esc(v)}</td>')
+            else:
+                cells.append(f"<td>{_esc(v)}</td>")
+        body.append("<tr>" + "".join(cells) + "</tr>")
+    if not body:
+        return '<p class="none">None.</p>'
+    return f'<table class="{cls}"><thead><tr>{head}</tr></thead><tbody>{"".join(body)}</tbody></table>'
+
+
+def _die(p: dict) -> str:
+    d = p.get("die")
+    return f"({d[0]}, {d[1]})" if d else ""
+
+
+def numeric_columns(index: SessionIndex) -> list[str]:
+    """Manifest columns with at least one numeric value: what a wafer map can show."""
+    cols = []
+    for c in index.columns:
+        if any(isinstance(r.get(c), (int, float)) and not isinstance(r.get(c), bool) for r in index.rows):
+            cols.append(c)
+    return cols
+
+
+def default_metric(index: SessionIndex) -> str:
+    """The wafer map's metric when none is chosen: a line Z0 if the session has
+    line metrics, else the number of retries."""
+    z0 = [c for c in index.metric_columns if _metric_kind(c) == "z0"]
+    return z0[len(z0) // 2] if z0 else "retries"
+
+
+def _metric_kind(col: str) -> str | None:
+    """Which of Z0 / loss / eps_eff / Q a metric column holds (None: other)."""
+    base = col.split("@")[0].lower()
+    if base.endswith("_im") or "imag" in base:
+        return None
+    if base.startswith("z0") or base.startswith("zc"):
+        return "z0"
+    if base.startswith(("alpha", "loss", "atten")):
+        return "loss"
+    if base.startswith(("eps", "er_eff", "eeff")):
+        return "eps_eff"
+    if base == "q" or base.startswith("q_"):
+        return "q"
+    return None
+
+
+# ---------------------------------------------------------------- sections
+
+
+def _header(inp: ReportInputs) -> str:
+    o, chain = inp.index.opened, inp.chain
+    s = o.get("settings") or {}
+    bench = o.get("bench") or {}
+    closed = inp.index.closed
+    rows = [
+        ("Session", o.get("session_id")), ("Wafer / lot", f"{o.get('wafer')} / {o.get('lot')}"),
+        ("Chip", o.get("chip")), ("Plan", f"{o.get('plan_name')} ({o.get('plan_file')}, SHA-256 {o.get('plan_sha256')})"),
+        ("Operator", o.get("operator")), ("Probes", ", ".join(map(str, o.get("probes") or []))),
+        ("Bench", f"{bench.get('description', '')} | VNA: {bench.get('vna_idn', '')} | prober: {bench.get('prober_idn', '')}"),
+        ("Sweep", f"{_ghz(s.get('start_hz'))} to {_ghz(s.get('stop_hz'))} GHz, {s.get('points')} points, "
+                  f"IF bandwidth {s.get('ifbw_hz')} Hz, {s.get('power_dbm')} dBm"),
+        ("probelog", o.get("probelog_version")),
+        ("Closed", "not closed (session ended without session-closed)" if closed is None
+         else f"{'completed' if closed.get('completed') else 'stopped early'}: {closed.get('summary', '')}"),
+    ]
+    state = "intact" if chain.ok else "BROKEN"
+    cls = "ok" if chain.ok else "bad"
+    torn = "<p class='bad'>The journal ended in a torn line (crash while writing); it was not read.</p>" if inp.torn_tail else ""
+    return (
+        f"<h1>Probing session {_esc(o.get('session_id'))}</h1>"
+        + _table(("", ""), rows, "kv")
+        + f'<div class="chain {cls}"><b>Journal hash chain: {state}</b> ({chain.events} events, '
+        f"checked by {_esc(chain.checked_by)}){'. ' + _esc(chain.problem) if chain.problem else ''}<br>"
+        f"SHA-256 of the last journal line: <code>{chain.last_hash}</code><br>"
+        "<small>Copy this hash off the machine: with it, any later edit of the journal shows.</small></div>"
+        + torn
+    )
+
+
+def _ghz(hz: Any) -> str:
+    return f"{hz / 1e9:g}" if isinstance(hz, (int, float)) else "?"
+
+
+def _summary(inp: ReportInputs) -> str:
+    idx = inp.index
+    actions = Counter(ev["payload"].get("action") for ev in idx.decisions)
+    verdicts = Counter(r.get("verdict") for r in idx.rows)
+    dies = {(r["die_col"], r["die_row"]) for r in idx.rows}
+    rows = [
+        ("Kept sweeps", len(idx.rows)), ("Dies with kept sweeps", len(dies)),
+        ("Sites", len({r["site"] for r in idx.rows})), ("Landings (all)", len(idx.landings)),
+        ("Re-landed", actions.get("reland", 0)), ("Skipped", actions.get("skip", 0)),
+        ("Given up", actions.get("give-up", 0)), ("Notes", len(idx.notes)),
+        ("Kept verdicts", ", ".join(f"{k}: {v}" for k, v in sorted(verdicts.items()))),
+        ("File integrity", "all files present, SHA-256 match" if not inp.integrity
+         else f"{len(inp.integrity)} problem(s), see below"),
+    ]
+    return "<h2 id='summary'>Summary</h2>" + _table(("", ""), rows, "kv")
+
+
+def _wafer_map(inp: ReportInputs) -> str:
+    idx, metric = inp.index, inp.metric or default_metric(inp.index)
+    per_die: dict[tuple, list[float]] = defaultdict(list)
+    worst: dict[tuple, str] = {}
+    rank = {"pass": 1, "warn": 2, "fail": 3}
+    for r in idx.rows:
+        d = (r["die_col"], r["die_row"])
+        v = r.get(metric)
+        if isinstance(v, (int, float)) and math.isfinite(v):
+            per_die[d].append(float(v))
+        if rank.get(r.get("verdict"), 0) >= rank.get(worst.get(d, ""), 0):
+            worst[d] = r.get("verdict")
+    head = f"<h2 id='wafer'>Wafer map: {_esc(metric)}</h2>"
+    if not worst:
+        return head + "<p class='none'>No kept sweeps.</p>"
+    cols = [d[0] for d in worst]
+    rows = [d[1] for d in worst]
+    c0, c1, r0, r1 = min(cols), max(cols), min(rows), max(rows)
+    grid = np.full((r1 - r0 + 1, c1 - c0 + 1), np.nan)
+    for (c, r), vals in per_die.items():
+        grid[r - r0, c - c0] = float(np.median(vals))
+    fig = Figure(figsize=(7.5, 6.0))
+    ax = fig.add_subplot()
+    extent = (c0 - 0.5, c1 + 0.5, r1 + 0.5, r0 - 0.5)
+    im = ax.imshow(grid, cmap="viridis", extent=extent, interpolation="nearest")
+    cb = fig.colorbar(im, ax=ax, shrink=0.85)
+    cb.set_label(f"median {metric} over the die's kept sweeps")
+    for (c, r), v in worst.items():
+        val = grid[r - r0, c - c0]
+        txt = "" if np.isnan(val) else f"{val:.3g}"
+        ax.add_patch(_die_frame(c, r, VERDICT_COLOURS.get(v, "#9e9e9e")))
+        ax.text(c, r, txt, ha="center", va="center", fontsize=7, color="white" if not np.isnan(val) else "black")
+    ax.set_xticks(range(c0, c1 + 1))
+    ax.set_yticks(range(r0, r1 + 1))
+    ax.set_xlabel("die column")
+    ax.set_ylabel("die row")
+    ax.set_title(f"{idx.opened.get('wafer', '')}: frame = worst kept verdict on the die", fontsize=9)
+    fig.tight_layout()
+    n = sum(len(v) for v in per_die.values())
+    note = "" if n else f"<p class='none'>No kept sweep has a numeric value for '{_esc(metric)}'.</p>"
+    return head + _png(fig, f"wafer map of {metric}") + note
+
+
+def _die_frame(c: int, r: int, colour: str):
+    from matplotlib.patches import Rectangle
+
+    return Rectangle((c - 0.46, r - 0.46), 0.92, 0.92, fill=False, edgecolor=colour, linewidth=2.2)
+
+
+def _overlays(inp: ReportInputs) -> str:
+    by_site: dict[str, list] = defaultdict(list)
+    kinds = {}
+    for r in inp.index.rows:
+        ntwk = inp.networks.get(r["seq"])
+        if ntwk is not None:
+            by_site[r["site"]].append(ntwk)
+            kinds[r["site"]] = r.get("kind", "")
+    head = "<h2 id='overlays'>Sweeps per site, all dies overlaid</h2>"
+    if not by_site:
+        return head + "<p class='none'>No sweeps could be read.</p>"
+    sites = sorted(by_site)
+    ncol = 4
+    nrow = math.ceil(len(sites) / ncol)
+    fig = Figure(figsize=(13, 2.6 * nrow))
+    for i, site in enumerate(sites):
+        ax = fig.add_subplot(nrow, ncol, i + 1)
+        nets = by_site[site]
+        one_port = kinds[site] in ONE_PORT_KINDS
+        for (m, n), colour, label in (((0, 0), "#1565c0", "S11"), ((1, 0), "#e65100", "S21")):
+            if one_port and (m, n) != (0, 0):
+                continue
+            segs = []
+            for nt in nets:
+                if nt.s.shape[1] <= max(m, n):
+                    continue
+                db = 20 * np.log10(np.maximum(np.abs(nt.s[:, m, n]), 1e-12))
+                segs.append(np.column_stack((nt.f / 1e9, db)))
+            if segs:
+                ax.add_collection(LineCollection(segs, colors=colour, linewidths=0.7,
+                                                 alpha=max(0.15, 1 / math.sqrt(len(segs))), label=label))
+        ax.autoscale()
+        ax.set_title(f"{site} ({len(nets)} dies)", fontsize=8)
+        ax.tick_params(labelsize=7)
+        ax.grid(alpha=0.3)
+        if i % ncol == 0:
+            ax.set_ylabel("dB", fontsize=7)
+        if i >= len(sites) - ncol:
+            ax.set_xlabel("GHz", fontsize=7)
+        if i == 0:
+            ax.legend(fontsize=7, loc="lower left")
+    fig.tight_layout()
+    return head + "<p>Blue |S11|, orange |S21| in dB (one-ports: S11 only). Corrected sweeps where a cal set was active, else raw.</p>" + _png(fig, "overlays per site")
+
+
+def _calibration(inp: ReportInputs) -> str:
+    idx = inp.index
+    rows, ver_rows, agr_rows = [], [], []
+    std_count: Counter = Counter()
+    status: dict[str, str] = {}
+    for ev in idx.cal_events:
+        p, t = ev["payload"], ev["type"]
+        if t == "cal-standard":
+            std_count[p.get("cal_id")] += 1
+        elif t == "cal-computed":
+            f = p.get("file")
+            rows.append([p.get("cal_id"), p.get("method"), ", ".join(p.get("standards") or []),
+                         f.get("path") if isinstance(f, dict) else f, "yes" if p.get("ok") else "no", p.get("message")])
+        elif t == "cal-verification":
+            ver_rows.append([p.get("cal_id"), p.get("site"), _die(p), p.get("verdict"),
+                             "; ".join(f"{c.get('name')}: {c.get('verdict')}" for c in p.get("checks") or [])])
+        elif t == "cal-agreement":
+            agr_rows.append([p.get("cal_id"), f"{p.get('method')} vs {p.get('other_method')}",
+                             p.get("worst"), _ghz(p.get("at_hz")), p.get("verdict")])
+        elif t in ("cal-accepted", "cal-rejected"):
+            status[p.get("cal_id")] = f"{t[4:]}: {p.get('reason', '')}"
+    for r in rows:
+        r.insert(3, std_count.get(r[0], 0))
+        r.append(status.get(r[0], "no decision"))
+    out = ["<h2 id='calibration'>Calibration</h2>",
+           _table(("cal set", "method", "standards", "standard sweeps", "file", "solved", "message", "decision"), rows),
+           "<h3>Verification structures</h3>",
+           _table(("cal set", "site", "die", "verdict", "checks"), ver_rows),
+           "<h3>Agreement between algorithms (worst-case bound over passive DUTs)</h3>",
+           _table(("cal set", "methods", "worst |dS|", "at GHz", "verdict"), agr_rows)]
+    smith = _smith(inp)
+    if smith:
+        out.append("<h3>Verification stubs on the Smith chart</h3>" + smith)
+    return "".join(out)
+
+
+def _smith(inp: ReportInputs) -> str:
+    import skrf
+
+    traces = []
+    for ev in inp.index.cal_events:
+        if ev["type"] != "cal-verification":
+            continue
+        p = ev["payload"]
+        ref = p.get("corrected") or p.get("raw")
+        path = ref.get("path") if isinstance(ref, dict) else ref
+        ntwk = inp.cal_networks.get(path)
+        if ntwk is not None:
+            traces.append((f"{p.get('cal_id')} {p.get('site')} {_die(p)}", ntwk, p.get("verdict")))
+    if not traces:
+        return ""
+    fig = Figure(figsize=(6.5, 6.5))
+    ax = fig.add_subplot()
+    skrf.plotting.smith(ax=ax, chart_type="z", draw_labels=True)
+    for label, ntwk, verdict in traces:
+        s11 = ntwk.s[:, 0, 0]
+        ax.plot(s11.real, s11.imag, lw=1.3, label=f"{label}: S11 ({verdict})")
+        ax.plot(s11.real[:1], s11.imag[:1], "o", ms=4, color="black")
+        if ntwk.s.shape[1] > 1:
+            s22 = ntwk.s[:, 1, 1]
+            ax.plot(s22.real, s22.imag, lw=0.9, ls="--", label=f"{label}: S22")
+    ax.legend(fontsize=7, loc="lower left")
+    ax.set_title("Corrected verification stubs; dot = first frequency. A lossless stub turns clockwise.", fontsize=8)
+    fig.tight_layout()
+    return _png(fig, "verification stubs on the Smith chart")
+
+
+def _line_trends(inp: ReportInputs) -> str:
+    idx = inp.index
+    head = "<h2 id='lines'>Line metrics against declared geometry</h2>"
+    by_kind: dict[str, dict[str, list[str]]] = defaultdict(lambda: defaultdict(list))
+    for c in idx.metric_columns:
+        k = _metric_kind(c)
+        if k and "@" in c:
+            by_kind[k][c.split("@")[1]].append(c)
+    freqs = Counter(f for d in by_kind.values() for f in d)
+    lines = [r for r in idx.rows if r.get("line_type") and r.get("w_over_g")]
+    if not freqs or not lines:
+        return head + "<p class='none'>No line metrics in this session (none journaled, none computed).</p>"
+    ordered = sorted(freqs, key=lambda f: float(f[:-3]))
+    fsel = max(ordered, key=lambda f: (freqs[f], -abs(ordered.index(f) - len(ordered) // 2)))
+    panels = [(k, by_kind[k][fsel][0]) for k in ("z0", "loss", "eps_eff", "q") if by_kind.get(k, {}).get(fsel)]
+    fig = Figure(figsize=(12, 3.6 * math.ceil(len(panels) / 2)))
+    families = sorted({(r["line_type"], r.get("metal") or "") for r in lines})
+    markers = "osD^v<>p*h"
+    for i, (kind, col) in enumerate(panels):
+        ax = fig.add_subplot(math.ceil(len(panels) / 2), 2, i + 1)
+        for j, fam in enumerate(families):
+            pts = [(r["w_over_g"], r[col]) for r in lines
+                   if (r["line_type"], r.get("metal") or "") == fam and isinstance(r.get(col), (int, float))]
+            if not pts:
+                continue
+            x, y = np.array(pts, dtype=float).T
+            line = ax.plot(x, y, markers[j % len(markers)], ms=4, alpha=0.45, label=f"{fam[0]} {fam[1]}")[0]
+            ux = np.unique(x)
+            med = [np.median(y[x == u]) for u in ux]
+            ax.plot(ux, med, "-", color=line.get_color(), lw=1.4)
+        ax.set_xscale("log")
+        ax.set_xlabel("width / gap (declared)")
+        ax.set_ylabel(col)
+        ax.grid(alpha=0.3, which="both")
+        if i == 0:
+            ax.legend(fontsize=7, title="line type, metal", title_fontsize=7)
+    fig.tight_layout()
+    return (head + f"<p>At {fsel[:-3]} GHz; dots: kept sweeps (all dies), lines: median per geometry. "
+            "Every line length of a family is pooled.</p>" + _png(fig, "line metrics against width to gap"))
+
+
+def _checks(inp: ReportInputs) -> str:
+    idx = inp.index
+    rows = []
+    for name, unit in idx.check_units.items():
+        counts: Counter = Counter()
+        worst = None
+        for r in idx.rows:
+            col = check_column(name)
+            v = r.get(col)
+            if v is None:
+                continue
+            counts[v] += 1
+            val = r.get(f"{col}_value")
+            if v in ("warn", "fail") and isinstance(val, (int, float)):
+                if worst is None or {"warn": 1, "fail": 2}[v] > {"warn": 1, "fail": 2}[worst[0]]:
+                    worst = (v, f"{val:.4g} {unit} at d({r['die_col']}, {r['die_row']}) {r['site']}")
+        rows.append([name, counts.get("pass", 0), counts.get("warn", 0), counts.get("fail", 0),
+                     counts.get("n/a", 0), worst[1] if worst else ""])
+    flagged = [[r["die_col"], r["die_row"], r["site"], r["landing"], r["verdict"]]
+               for r in idx.rows if r.get("verdict") in ("warn", "fail")]
+    return ("<h2 id='checks'>Checks on kept sweeps</h2>"
+            + _table(("check", "pass", "warn", "fail", "n/a", "worst flagged"), rows)
+            + "<h3>Kept despite a warn or fail verdict</h3>"
+            + _table(("die col", "die row", "site", "landing", "verdict"), flagged))
+
+
+def _retries_and_notes(inp: ReportInputs) -> str:
+    idx = inp.index
+    landed: dict[tuple, list] = defaultdict(list)
+    for ev in idx.landings:
+        p = ev["payload"]
+        landed[(tuple(p.get("die") or ()), p.get("site"))].append(p)
+    reasons: dict[tuple, list[str]] = defaultdict(list)
+    other = []
+    for ev in idx.decisions:
+        p = ev["payload"]
+        k = (tuple(p.get("die") or ()), p.get("site"))
+        if p.get("action") == "reland":
+            reasons[k].append(f"L{p.get('landing')}: {p.get('reason') or ''}")
+        elif p.get("action") in ("skip", "give-up"):
+            other.append([ev["ts"], _die(p), p.get("site"), p.get("action"), p.get("reason")])
+    retry_rows = []
+    for k, ps in landed.items():
+        if len(ps) > 1:
+            retry_rows.append([f"({k[0][0]}, {k[0][1]})" if k[0] else "", k[1], len(ps),
+                               " > ".join(str(p.get("verdict")) for p in ps), " | ".join(reasons.get(k, []))])
+    notes = [[ev["ts"], _die(ev["payload"]), ev["payload"].get("site") or "", ev["payload"].get("text")]
+             for ev in idx.notes]
+    errs = [[ev["ts"], ev["type"], ev["payload"].get("where") or "",
+             ev["payload"].get("message") or ev["payload"].get("reason") or ""] for ev in idx.errors]
+    drifts = [[ev["ts"], _die(ev["payload"]), ev["payload"].get("site"), ev["payload"].get("verdict"),
+               "; ".join(f"{c.get('name')}: {c.get('verdict')}" for c in ev["payload"].get("checks") or [])]
+              for ev in idx.drifts]
+    return ("<h2 id='retries'>Retries</h2>"
+            + _table(("die", "site", "landings", "verdicts in order", "re-land reasons"), retry_rows)
+            + "<h3>Skipped and given up</h3>" + _table(("time", "die", "site", "action", "reason"), other)
+            + "<h2 id='notes'>Notes</h2>" + _table(("time", "die", "site", "note"), notes)
+            + "<h2 id='events'>Drift checks, instrument errors, recoveries</h2>"
+            + _table(("time", "die", "site", "verdict", "checks"), drifts)
+            + _table(("time", "event", "where", "message"), errs))
+
+
+def _integrity(inp: ReportInputs) -> str:
+    if not inp.integrity:
+        return ""
+    return ("<h2 id='integrity' class='bad'>File integrity problems</h2><ul>"
+            + "".join(f"<li>{_esc(p)}</li>" for p in inp.integrity) + "</ul>")
+
+
+CSS = """
+body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;margin:24px auto;max-width:1180px;color:#212121}
+h1{font-size:22px}h2{font-size:18px;border-bottom:1px solid #ccc;padding-top:10px}h3{font-size:15px}
+table{border-collapse:collapse;font-size:13px;margin:6px 0 14px}td,th{border:1px solid #ddd;padding:3px 7px;text-align:left;vertical-align:top}
+th{background:#f3f3f3}table.kv td:first-child{font-weight:600;white-space:nowrap}
+img{max-width:100%}code{font-size:12px;word-break:break-all}
+.chain{padding:8px 12px;margin:10px 0;border-radius:4px}.chain.ok{background:#e8f5e9}.chain.bad,.bad{background:#ffebee;color:#b71c1c}
+.v-pass{color:#2e7d32}.v-warn{color:#ef8f00;font-weight:600}.v-fail{color:#c62828;font-weight:600}.v-na{color:#9e9e9e}
+.none{color:#757575;font-style:italic}nav a{margin-right:12px}
+"""
+
+
+def build_report(inp: ReportInputs) -> str:
+    """The whole report as one self-contained HTML string (no external links)."""
+    nav = "".join(f'<a href="#{a}">{t}</a>' for a, t in (
+        ("summary", "Summary"), ("wafer", "Wafer map"), ("calibration", "Calibration"),
+        ("overlays", "Overlays"), ("lines", "Line metrics"), ("checks", "Checks"),
+        ("retries", "Retries"), ("notes", "Notes")))
+    body = "".join((_header(inp), f"<nav>{nav}</nav>", _summary(inp), _integrity(inp), _wafer_map(inp),
+                    _calibration(inp), _overlays(inp), _line_trends(inp), _checks(inp),
+                    _retries_and_notes(inp)))
+    title = html.escape(f"probelog report {inp.index.opened.get('session_id', '')}")
+    return (f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>{title}</title>"
+            f"<style>{CSS}</style></head><body>{body}</body></html>")
+
+
+def self_contained(page: str) -> bool:
+    """True when no src/href points outside the file (http, https or protocol-relative)."""
+    return re.search(r"""(?:src|href)\s*=\s*["']?\s*(?:https?:|//)""", page, re.I) is None
