@@ -247,7 +247,7 @@ class Engine:
         self._since_drift = 0
         self._drift_due = False
         self._auto_recals = 0
-        self._sequence = [(die, site) for die in plan.dies for site in plan.sequence]
+        self._sequence = [(die, site) for die in plan.dies_in_order() for site in plan.sequence_sites]
         if _replay is None:
             self._open_session()
             if self._phase is Phase.CALIBRATING:
@@ -344,10 +344,10 @@ class Engine:
 
     @property
     def wafer_status(self) -> dict[Die, str]:
-        n_sites = len(self.plan.sequence)
+        n_sites = len(self.plan.sequence_sites)
         status: dict[Die, str] = {}
-        for die in self.plan.dies:
-            acts = [self._finished.get((die, s.name)) for s in self.plan.sequence]
+        for die in self.plan.dies_in_order():
+            acts = [self._finished.get((die, s.name)) for s in self.plan.sequence_sites]
             done = [a for a in acts if a is not None]
             if not done:
                 status[die] = "todo"
@@ -374,7 +374,7 @@ class Engine:
             return None
         drift_site = self._drift_site()
         if drift_site and self._active_cal is not None and (self._drift_ref is None or self._drift_due):
-            die = self._cal_die()
+            die = self._drift_die()
             return Step(StepKind.DRIFT, die, drift_site, self._site(drift_site).kind,
                         self._landings.get((die, drift_site), 0) + 1, 0, 1)
         for i, (die, site) in enumerate(self._sequence):
@@ -620,7 +620,7 @@ class Engine:
         cal_dir = f"data/cal/{self._cal_id}"
         names = [name for name, _ in self._required()]
         try:
-            calset = cal.solve(method, measured, kit)
+            calset = cal.solve(method, measured, kit, cal_id=self._cal_id)
             ok, message = True, f"{method.upper()} solved from {len(measured)} standards"
         except Exception as exc:  # a singular or inconsistent set of standards
             calset, ok, message = None, False, f"{method.upper()} could not be solved: {exc}"
@@ -631,8 +631,7 @@ class Engine:
                              Verdict.PASS if ok else Verdict.FAIL, ev.seq, ref["path"] if ref else None)
         if not ok:
             return outcome
-        for site_name in self._verify_sites():
-            outcome.verification.append(self._measure_verification(site_name, calset))
+        outcome.verification = self._verification(calset, kit)
         outcome.agreement = self._agreement(method, calset, measured, kit, cal_dir)
         worst = [o.verdict for o in outcome.verification]
         if outcome.agreement:
@@ -641,29 +640,49 @@ class Engine:
         outcome.seq = self._last_seq()
         return outcome
 
-    def _measure_verification(self, site_name: str, calset) -> LandingOutcome:
+    def _verification(self, calset, kit) -> list[LandingOutcome]:
+        """Measure every verification site, then judge: the kit's open stub and
+        thru with calibration.verify, any other site with its kind's checks."""
         from probelog import calibration as cal
 
         die = self._cal_die()
-        site = self._site(site_name)
-        landing = self._landings.get((die, site_name), 0) + 1
-        step = Step(StepKind.VERIFY, die, site_name, site.kind, landing, 0, 1)
-        raw = self._land(die, site_name)
-        cor = calset.apply(raw)
-        checks = list(cal.verify(cor, site.kind, self._limits(), getattr(site, "expectation", None)))
-        verdict = overall(checks)
-        files = self._write_pair(f"data/cal/{self._cal_id}/{site_name}", raw, cor, step)
-        ev = self._append("cal-verification", {
-            "cal_id": self._cal_id, "site": site_name, "die": _die_json(die), "landing": landing,
-            "raw": files["raw"], "corrected": files["corrected"],
-            "checks": [c.to_json() for c in checks], "verdict": verdict.value,
-            "touchdowns": dict(self._touchdowns),
-        })
-        self._landings[(die, site_name)] = landing
-        out = LandingOutcome(step, raw, cor, checks, verdict, None, ev.seq,
-                             {k: v["path"] for k, v in files.items()})
-        self._emit(StepMeasured(seq=ev.seq, outcome=out))
-        return out
+        measured = []
+        for site_name in self._verify_sites():
+            site = self._site(site_name)
+            landing = self._landings.get((die, site_name), 0) + 1
+            step = Step(StepKind.VERIFY, die, site_name, site.kind, landing, len(measured),
+                        len(self._verify_sites()))
+            raw = self._land(die, site_name)
+            cor = calset.apply(raw)
+            files = self._write_pair(f"data/cal/{self._cal_id}/{site_name}-L{landing}", raw, cor, step)
+            self._landings[(die, site_name)] = landing
+            measured.append((step, raw, cor, files))
+        stub_site = kit.verification.get("open_stub_site") if isinstance(kit.verification, dict) else None
+        thru_site = kit.site_of("thru")
+        by_site = {m[0].site: m[2] for m in measured}
+        ver_checks: list[CheckResult] = []
+        if stub_site in by_site:
+            ver_checks = list(cal.verify(by_site[stub_site], by_site.get(thru_site), kit))
+        outs = []
+        for step, raw, cor, files in measured:
+            if step.site == stub_site:
+                checks = [c for c in ver_checks if c.name.startswith("ver-stub")]
+            elif step.site == thru_site and stub_site in by_site:
+                checks = [c for c in ver_checks if c.name.startswith("ver-thru")]
+            else:
+                checks = self._checks(cor, self._site(step.site))
+            verdict = overall(checks)
+            ev = self._append("cal-verification", {
+                "cal_id": self._cal_id, "site": step.site, "die": _die_json(die), "landing": step.landing,
+                "raw": files["raw"], "corrected": files["corrected"],
+                "checks": [c.to_json() for c in checks], "verdict": verdict.value,
+                "touchdowns": dict(self._touchdowns),
+            })
+            out = LandingOutcome(step, raw, cor, checks, verdict, None, ev.seq,
+                                 {k: v["path"] for k, v in files.items()})
+            self._emit(StepMeasured(seq=ev.seq, outcome=out))
+            outs.append(out)
+        return outs
 
     # ------------------------------------------------------------ instruments
 
@@ -724,8 +743,7 @@ class Engine:
     def _checks(self, ntwk: skrf.Network, site, previous=None, reference=None) -> list[CheckResult]:
         from probelog.checks import run_checks
 
-        return list(run_checks(ntwk, site.kind, self._limits(), getattr(site, "expectation", None),
-                               previous, reference))
+        return list(run_checks(ntwk, site.kind, self._limits(), _expectation(site), previous, reference))
 
     def _metrics(self, ntwk: skrf.Network, site) -> dict | None:
         length_um = getattr(site, "length_um", None)
@@ -733,9 +751,12 @@ class Engine:
             return None
         from probelog import lines
 
+        import numpy as np
+
         try:
-            m = lines.line_metrics(ntwk, float(length_um) * 1e-6)
-            return lines.metrics_at(m, lines.default_frequencies(m.f_hz))
+            with np.errstate(all="ignore"):  # a lifted tip gives singular ABCD; checks judge it
+                m = lines.line_metrics(ntwk, float(length_um) * 1e-6)
+                return lines.metrics_at(m, lines.default_frequencies(m.f_hz))
         except (ValueError, FloatingPointError, ZeroDivisionError):
             return None  # metrics are information; the line-window check judges
 
@@ -746,8 +767,6 @@ class Engine:
         return files
 
     def _write_net(self, stem: str, ntwk: skrf.Network, step: Step, what: str) -> dict:
-        from probelog.touchstone_out import network_to_touchstone
-
         s = self.plan.settings
         header = {
             "session": self.session_id, "seq": self._last_seq() + 1, "what": what,
@@ -758,41 +777,44 @@ class Engine:
             "wafer": self._wafer_id(), "start_hz": s.start_hz, "stop_hz": s.stop_hz,
             "points": s.points, "ifbw_hz": s.ifbw_hz, "power_dbm": s.power_dbm,
         }
-        data = network_to_touchstone(ntwk, header)
+        data = _touchstone_bytes(ntwk, header)
         ref = self.journal.write_file(f"{stem}.s{ntwk.nports}p", data)
         return {"path": str(ref.path), "sha256": ref.sha256}
 
     def _save_calset(self, calset, cal_dir: str) -> dict:
-        ref = _save_calset(calset, self.journal, cal_dir)
-        return {"path": str(ref.path), "sha256": ref.sha256}
+        refs = _save_calset(calset, self.journal, cal_dir)
+        return {"path": str(refs[0].path), "sha256": refs[0].sha256}
 
     def _standard_networks(self) -> dict[str, skrf.Network]:
+        """Raw standards keyed by site name (as calibration.solve wants them)."""
+        sites = dict(self._required())
         out = {}
         for name, (ntwk, verdict, seq, path) in list(self._std_measured.items()):
             if ntwk is None:  # resumed mid-calibration: read the raw standard back once
                 ntwk = skrf.Network(str(self.session_dir / path))
                 self._std_measured[name] = (ntwk, verdict, seq, path)
-            out[name] = ntwk
+            out[sites[name]] = ntwk
         return out
 
     def _agreement(self, method: str, calset, measured, kit, cal_dir: str) -> dict | None:
         from probelog import calibration as cal
 
-        others = [m for m in cal.comparable_methods(method, kit) if m != method]
+        others = cal.comparable_methods(method, list(measured), kit)
         if not others:
             return None
-        other_method = others[0]
+        wanted = self._cal().compare_with
+        other_method = wanted if wanted in others else others[0]
         try:
-            other = cal.solve(other_method, measured, kit)
+            other = cal.solve(other_method, measured, kit, cal_id=f"{self._cal_id}-{other_method}")
+            result = cal.agreement(calset, other, list(measured.values()))
         except Exception:  # the second algorithm is a cross-check, not a requirement
             return None
-        result = cal.agreement(calset, other, measured)
-        csv = _agreement_csv(result)
-        ref = self.journal.write_file(f"{cal_dir}/agreement-{method}-{other_method}.csv", csv)
-        verdict = _agreement_verdict(result, self._limits())
+        ref = self.journal.write_file(f"{cal_dir}/agreement-{method}-{other_method}.csv",
+                                      _agreement_csv(result))
         payload = {"cal_id": self._cal_id, "method": method, "other_method": other_method,
                    "worst": float(result.worst), "at_hz": float(result.at_hz),
-                   "file": {"path": str(ref.path), "sha256": ref.sha256}, "verdict": verdict.value}
+                   "file": {"path": str(ref.path), "sha256": ref.sha256},
+                   "verdict": _agreement_verdict(result).value}
         self._append("cal-agreement", payload)
         return payload
 
@@ -818,7 +840,9 @@ class Engine:
         from probelog import calibration as cal
 
         if getattr(self, "_kit_cache", None) is None:
-            self._kit_cache = cal.load_kit(self._cal().kit)
+            plan_cal = self._cal()
+            source = str(plan_cal.kit_path) if plan_cal.kit_path else f"{self.plan.source}: calibration.kit"
+            self._kit_cache = cal.kit_from_mapping(plan_cal.load_kit(), source)
         return self._kit_cache
 
     def _required(self) -> list[tuple[str, str]]:
@@ -833,28 +857,36 @@ class Engine:
         return self._required_cache
 
     def _cal_die(self) -> Die:
-        cal = self._cal()
-        die = getattr(cal, "die", None) if cal is not None else None
-        return tuple(die) if die is not None else tuple(self.plan.dies[0])
+        return tuple(self._cal().die)
+
+    def _drift_die(self) -> Die:
+        die = self.plan.sequence.drift_die
+        return tuple(die) if die is not None else self._cal_die()
 
     def _verify_sites(self) -> list[str]:
-        return list(getattr(self._cal(), "verify", ()) or ())
+        return list(self._cal().verification)
 
     def _drift_site(self) -> str | None:
-        cal = self._cal()
-        return getattr(cal, "drift_site", None) if cal is not None and self._has_cal() else None
+        return self.plan.sequence.drift_site if self._has_cal() else None
 
     def _drift_every(self) -> int:
-        return int(getattr(self._cal(), "drift_every", 0) or 0)
+        return int(self.plan.sequence.drift_every_landings or 0)
 
     def _limits(self):
-        return self.plan.limits
+        if getattr(self, "_limits_cache", None) is None:
+            from probelog.checks import Limits
+
+            try:
+                self._limits_cache = Limits.from_mapping(self.plan.limits, f"{self.plan.source}: [limits]")
+            except ValueError as exc:
+                raise EngineError(str(exc)) from None
+        return self._limits_cache
 
     def _probe_ids(self) -> list[str]:
-        return list(getattr(self.plan, "probes", None) or ("port1", "port2"))
+        return list(self.plan.probes.ids)
 
     def _wafer_id(self) -> str:
-        return str(getattr(self.plan, "wafer_id", "") or "")
+        return self.plan.wafer.id
 
     # ------------------------------------------------------------ bookkeeping
 
@@ -870,10 +902,9 @@ class Engine:
 
         self._append("session-opened", {
             "session_id": self.session_id, "probelog_version": __version__,
-            "plan_name": plan.name, "plan_file": str(getattr(plan, "path", "") or ""),
-            "plan_sha256": getattr(plan, "sha256", None), "plan_text": getattr(plan, "text", None),
-            "operator": self.operator, "wafer": self._wafer_id(), "lot": str(getattr(plan, "lot", "") or ""),
-            "chip": str(getattr(plan, "chip", "") or ""), "probes": self._probe_ids(), "bench": bench_info,
+            "plan_name": plan.name, "plan_file": plan.source, "plan_sha256": plan.sha256,
+            "plan_text": plan.text, "operator": self.operator, "wafer": plan.wafer.id,
+            "lot": plan.wafer.lot, "chip": plan.wafer.chip, "probes": self._probe_ids(), "bench": bench_info,
             "settings": {"start_hz": s.start_hz, "stop_hz": s.stop_hz, "points": s.points,
                          "ifbw_hz": s.ifbw_hz, "power_dbm": s.power_dbm},
         })
@@ -1047,6 +1078,12 @@ def _pairs(required) -> list[tuple[str, str]]:
     return out
 
 
+def _touchstone_bytes(ntwk: skrf.Network, header: dict) -> bytes:
+    from probelog.touchstone_out import network_to_touchstone
+
+    return network_to_touchstone(ntwk, header)
+
+
 def _journal_events(journal):
     return journal.events()
 
@@ -1060,14 +1097,20 @@ def _plan_from_opened(payload: dict, session_dir: Path):
     return load_plan_text(text, source=payload.get("plan_file") or f"{session_dir}/journal.jsonl")
 
 
-def _save_calset(calset, journal, cal_dir: str):
-    return calset.save(journal, cal_dir)
+def _save_calset(calset, journal, cal_dir: str) -> list:
+    """CalSet.save writes plain files: save to a scratch folder, then store each
+    file through the journal (atomic, hashed). Returns FileRefs, calset.json first."""
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as tmp:
+        paths = sorted(calset.save(tmp), key=lambda p: p.name != "calset.json")
+        return [journal.write_file(f"{cal_dir}/calset/{p.name}", p.read_bytes()) for p in paths]
 
 
 def _load_calset(path: Path):
-    from probelog.calibration import CalSet
+    from probelog.calibration import load_calset
 
-    return CalSet.load(path)
+    return load_calset(path.parent if path.name == "calset.json" else path)
 
 
 def _cal_outcome(d: dict, calset) -> CalOutcome:
@@ -1076,16 +1119,25 @@ def _cal_outcome(d: dict, calset) -> CalOutcome:
                       verdict, d["seq"], d["file"])
 
 
+def _expectation(site) -> dict:
+    """The plan's expectations of a site as the mapping run_checks reads."""
+    return {k: v for k, v in dataclasses.asdict(site).items() if v is not None}
+
+
 def _agreement_csv(result) -> bytes:
-    import io
+    import tempfile
 
-    import numpy as np
-
-    buf = io.StringIO()
-    np.savetxt(buf, np.column_stack([result.f_hz, result.bounds]), delimiter=",",
-               header="f_hz," + ",".join(result.labels), comments="")
-    return buf.getvalue().encode()
+    with tempfile.TemporaryDirectory() as tmp:
+        return result.write_csv(Path(tmp) / "agreement.csv").read_bytes()
 
 
-def _agreement_verdict(result, limits) -> Verdict:
-    return Verdict(getattr(result, "verdict", Verdict.PASS))
+# Worst-case |dS| (linear) between two cal sets from the same standards: above a
+# few hundredths the choice of algorithm shows in the data (common practice, no source).
+AGREEMENT_WARN = 0.03
+AGREEMENT_FAIL = 0.10
+
+
+def _agreement_verdict(result) -> Verdict:
+    if result.worst > AGREEMENT_FAIL:
+        return Verdict.FAIL
+    return Verdict.WARN if result.worst > AGREEMENT_WARN else Verdict.PASS

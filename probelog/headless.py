@@ -1,0 +1,194 @@
+"""Run a session without a person at the keyboard.
+
+Policy: calibrate, accept the calibration when it solved (a failed verification
+is recorded and the run goes on: the verdicts are in the journal for the
+analyst); for every site accept a landing that did not fail, re-land a failed
+one up to ``retries`` times, then give up on it (recorded as failed) and go on.
+Instrument errors are retried the same way. A failed drift check recalibrates
+once per run; later drift failures are only recorded.
+
+One line a landing goes to ``out`` (a rich Console or any text stream), with a
+progress bar when ``out`` is a terminal; the last line is the session folder.
+"""
+
+from __future__ import annotations
+
+import sys
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TextIO
+
+from probelog.session import (
+    Engine,
+    EngineEvent,
+    InstrumentError,
+    Phase,
+    RecalibrationAdvised,
+    StepKind,
+)
+from probelog.verdicts import Verdict
+
+
+@dataclass
+class Summary:
+    """What a headless run did. ``exit_code`` is 0 when the plan completed."""
+
+    completed: bool
+    accepted: int
+    skipped: int
+    failed: int
+    landings: int
+    relands: int
+    instrument_errors: int
+    recalibrations: int
+    session_dir: Path
+
+    @property
+    def exit_code(self) -> int:
+        return 0 if self.completed else 1
+
+
+class _Out:
+    """Lines to a rich Console (with a progress bar on a terminal) or a stream."""
+
+    def __init__(self, out):
+        from rich.console import Console
+
+        self.console = out if isinstance(out, Console) else Console(
+            file=out or sys.stdout, highlight=False, soft_wrap=True)
+        self.progress = None
+        self.task = None
+
+    def start(self, total: int, done: int) -> None:
+        if not self.console.is_terminal:
+            return
+        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+
+        self.progress = Progress(TextColumn("sites"), BarColumn(), MofNCompleteColumn(),
+                                 console=self.console, transient=True)
+        self.task = self.progress.add_task("sites", total=total, completed=done)
+        self.progress.start()
+
+    def advance(self, done: int) -> None:
+        if self.progress is not None:
+            self.progress.update(self.task, completed=done)
+
+    def line(self, text: str) -> None:
+        self.console.print(text, markup=False, highlight=False)
+        if not self.console.is_terminal:
+            self.console.file.flush()
+
+    def stop(self) -> None:
+        if self.progress is not None:
+            self.progress.stop()
+
+
+def _fmt_checks(outcome) -> str:
+    bad = [c for c in outcome.checks if c.verdict in (Verdict.FAIL, Verdict.WARN)]
+    return "; ".join(f"{c.name} {c.verdict.value}: {c.message}" for c in bad[:2])
+
+
+def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
+                 close: bool = True) -> Summary:
+    """Drive ``engine`` to the end of its plan with the policy above.
+
+    ``retries``: re-landings of a failed site before giving up (>= 0). Closes the
+    session (``session-closed``) when ``close`` is true; never closes the bench.
+    """
+    if retries < 0:
+        raise ValueError(f"retries must be >= 0, got {retries}")
+    printer = _Out(out)
+    advised: list[str] = []
+    counts = {"relands": 0, "errors": 0, "recals": 0, "landings": 0}
+
+    def on_event(ev: EngineEvent) -> None:
+        if isinstance(ev, RecalibrationAdvised):
+            advised.append(ev.reason)
+
+    engine.subscribe(on_event)
+    engine.show_cautions()
+    done, total = engine.progress
+    printer.start(total, done)
+    printer.line(f"session {engine.session_id}: {total - done} site landings to go")
+    failures_here = 0  # failed landings / instrument errors on the current step
+    try:
+        while engine.phase is not Phase.DONE:
+            phase = engine.phase
+            if phase is Phase.CALIBRATING and engine.next_step is None:
+                cal = engine.compute_calibration()
+                agree = ""
+                if cal.agreement:
+                    agree = f", {cal.agreement['other_method']} agrees within {cal.agreement['worst']:.4f}"
+                printer.line(f"cal {cal.cal_id} {cal.method}: {cal.verdict.value} ({cal.message}{agree})")
+                continue
+            if phase is Phase.VERIFYING:
+                pending = engine.pending_cal
+                if pending is not None and pending.ok:
+                    engine.accept_calibration("headless: accepted when solved; verdicts on record")
+                else:
+                    engine.redo_calibration("headless: calibration did not solve")
+                continue
+            step = engine.next_step
+            try:
+                outcome = engine.measure()
+            except InstrumentError as exc:
+                counts["errors"] += 1
+                failures_here += 1
+                printer.line(f"instrument error ({exc}); retry {failures_here}/{retries + 1}")
+                if failures_here > retries:
+                    failures_here = 0
+                    if step is not None and step.kind is StepKind.SITE:
+                        engine.give_up(f"headless: instrument error after {retries + 1} tries: {exc}")
+                        printer.line(f"{_where(step)} given up after instrument errors")
+                    else:
+                        raise  # a cal standard or drift step cannot be given up
+                continue
+            counts["landings"] += 1
+            step = outcome.step
+            if step.kind is StepKind.CAL_STANDARD:
+                printer.line(f"cal {step.standard:<8} {_where(step)} {outcome.verdict.value}")
+                continue
+            if step.kind is StepKind.DRIFT:
+                printer.line(f"drift {_where(step)} {outcome.verdict.value} {_fmt_checks(outcome)}".rstrip())
+                if advised:
+                    reason = advised.pop()
+                    if counts["recals"] == 0:
+                        counts["recals"] += 1
+                        printer.line(f"recalibrating: {reason}")
+                        engine.recalibrate(f"headless: {reason}")
+                    advised.clear()
+                continue
+            d, t = engine.progress
+            line = f"[{d + 1}/{t}] {_where(step)} L{step.landing} {outcome.verdict.value}"
+            if outcome.verdict is not Verdict.FAIL:
+                engine.accept()
+                failures_here = 0
+                printer.line(line)
+            elif failures_here < retries:
+                failures_here += 1
+                counts["relands"] += 1
+                engine.reland(f"headless: {_fmt_checks(outcome)}")
+                printer.line(f"{line} -> re-land ({_fmt_checks(outcome)})")
+            else:
+                failures_here = 0
+                engine.give_up(f"headless: still failing after {retries} re-landings: {_fmt_checks(outcome)}")
+                printer.line(f"{line} -> given up ({_fmt_checks(outcome)})")
+            printer.advance(engine.progress[0])
+    finally:
+        printer.stop()
+    summary_d = engine.summary()
+    completed = engine.phase is Phase.DONE
+    summary = Summary(completed, summary_d["accepted"], summary_d["skipped"], summary_d["failed"],
+                      counts["landings"], counts["relands"], counts["errors"], counts["recals"],
+                      engine.session_dir)
+    if close:
+        engine.close(completed)
+    printer.line(f"done: {summary.accepted} accepted, {summary.failed} failed, {summary.skipped} skipped; "
+                 f"{summary.relands} re-landings, {summary.instrument_errors} instrument errors, "
+                 f"{summary.recalibrations} recalibrations")
+    printer.line(str(engine.session_dir))
+    return summary
+
+
+def _where(step) -> str:
+    return f"die {step.die[0]},{step.die[1]} {step.site}"

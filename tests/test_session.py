@@ -1,0 +1,143 @@
+"""The session engine on a fake bench of ideal structures (tests/_engine_fakes.py)."""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+
+import numpy as np
+import pytest
+
+import probelog.session as S
+from probelog.plan import load_plan_text
+from probelog.verdicts import Verdict
+from tests._engine_fakes import FakeJournal, fake_bench, ideal, plan_text, touchstone_bytes
+
+
+@pytest.fixture(autouse=True)
+def _touchstone(monkeypatch):
+    try:
+        import probelog.touchstone_out  # noqa: F401
+    except ModuleNotFoundError:  # until the Touchstone writer lands, plain skrf output
+        monkeypatch.setattr(S, "_touchstone_bytes", touchstone_bytes)
+
+
+def make(tmp_path, **kw):
+    plan = load_plan_text(plan_text(**kw), "fake.toml")
+    bench = fake_bench()
+    journal = FakeJournal(tmp_path / "s1")
+    events: list = []
+    engine = S.Engine(plan, bench, journal, operator="tester")
+    engine.subscribe(events.append)
+    return engine, bench, journal, events
+
+
+def calibrate(engine):
+    while engine.next_step is not None:
+        assert engine.next_step.kind is S.StepKind.CAL_STANDARD
+        engine.measure()
+    cal = engine.compute_calibration()
+    engine.accept_calibration()
+    return cal
+
+
+def test_walk_calibrates_checks_and_journals_in_order(tmp_path):
+    engine, bench, journal, events = make(tmp_path)
+    assert engine.phase is S.Phase.CALIBRATING
+    assert [s.name for s in engine.cal_standards] == ["open", "short", "load", "thru"]
+    cal = calibrate(engine)
+    assert cal.ok and cal.verdict is Verdict.PASS
+    # LRRM and SOLT from exactly modelled standards agree (REFERENCES.md: each
+    # calibration recovers a DUT to ~1e-11 when the standards are exact).
+    assert cal.agreement["worst"] < 1e-6
+    assert engine.phase is S.Phase.PROBING
+    while engine.phase is not S.Phase.DONE:
+        out = engine.measure()
+        assert engine.phase is S.Phase.DECIDING and out.verdict is Verdict.PASS
+        # corrected line equals the ideal one: skrf calibration with exact standards
+        ref = ideal(*{"ln-a": ("line", {"length_um": 500.0}), "ln-b": ("line", {"length_um": 1500.0}),
+                      "dev-ind": ("device", {})}[out.step.site], out.raw.frequency)
+        assert np.abs(out.corrected.s - ref.s).max() < 1e-8
+        engine.accept()
+    assert engine.progress == (6, 6)
+    assert set(engine.wafer_status.values()) == {"done"}
+    # one touchdown per landing and probe: 4 standards + 2 verification + 6 sites
+    assert engine.touchdowns == {"P1": 12, "P2": 12} == bench.prober.td
+    assert bench.prober.moves_in_contact == 0
+    types = [e.type for e in journal.events()]
+    assert types[:2] == ["session-opened", "cal-standard"]
+    assert types.count("landing") == 6 and types.count("decision") == 6
+    assert types.index("cal-accepted") < types.index("landing")
+    landing = next(e for e in journal.events() if e.type == "landing")
+    raw = landing.payload["raw"]
+    assert hashlib.sha256((journal.root / raw["path"]).read_bytes()).hexdigest() == raw["sha256"]
+    assert raw["path"] == "data/d1_1/ln-a/L1-raw.s2p"
+    assert landing.payload["metrics"]["eps_eff"][0] == pytest.approx(6.35, rel=1e-6)  # fake's eps_eff
+    engine.close()
+    assert journal.events()[-1].type == "session-closed" and journal.events()[-1].payload["completed"]
+    kinds = [type(e).__name__ for e in events]
+    assert "CalibrationComputed" in kinds and kinds[-1] == "SessionClosed"
+
+
+def test_power_above_the_limit_is_refused(tmp_path):
+    plan = load_plan_text(plan_text(), "fake.toml")
+    hot = dataclasses.replace(plan, vna=dataclasses.replace(plan.vna, power_dbm=0.0))
+    with pytest.raises(S.EngineError, match="above the plan's limit"):
+        S.Engine(hot, fake_bench(), FakeJournal(tmp_path / "s"), "t")
+
+
+def test_decisions_need_reasons_and_the_right_phase(tmp_path):
+    engine, *_ = make(tmp_path)
+    with pytest.raises(S.EngineError, match="expected phase deciding"):
+        engine.accept()
+    with pytest.raises(S.EngineError, match="standards not measured"):
+        engine.compute_calibration()
+    calibrate(engine)
+    engine.measure()
+    with pytest.raises(S.EngineError, match="reason is required"):
+        engine.skip("  ")
+    engine.reland("looked skated")
+    assert engine.next_step.landing == 2
+    out = engine.measure()
+    assert out.files["raw"].endswith("L2-raw.s2p")
+    engine.skip("pad damaged")
+    assert engine.next_step.site == "ln-b"
+
+
+def test_instrument_error_is_journaled_and_measure_can_be_retried(tmp_path):
+    engine, bench, journal, events = make(tmp_path)
+    calibrate(engine)
+    bench.vna.faults[((1, 1), "ln-a")] = ["error"]
+    step = engine.next_step
+    with pytest.raises(S.InstrumentError) as exc:
+        engine.measure()
+    assert exc.value.where == "vna"
+    last = journal.events()[-1]
+    assert last.type == "instrument-error" and last.payload["error"] == "TimeoutError"
+    assert not bench.prober.in_contact  # separated after the failure
+    assert engine.next_step == step and engine.phase is S.Phase.PROBING
+    assert engine.measure().step.landing == 1
+    assert any(isinstance(e, S.InstrumentFailed) for e in events)
+
+
+def test_drift_failure_advises_recalibration(tmp_path):
+    engine, bench, journal, events = make(tmp_path, drift_every=2)
+    calibrate(engine)
+    assert engine.next_step.kind is S.StepKind.DRIFT
+    ref = engine.measure()  # the reference right after calibration
+    assert ref.verdict is Verdict.PASS and journal.events()[-1].payload["reference_seq"] is None
+    for _ in range(2):
+        engine.measure()
+        engine.accept()
+    assert engine.next_step.kind is S.StepKind.DRIFT
+    bench.vna.drift_db = 0.5  # a 0.5 dB tracking change: far beyond trade-number drift (0.01-0.05 dB)
+    out = engine.measure()
+    assert out.verdict is Verdict.FAIL
+    assert journal.events()[-1].type == "recal-requested"
+    assert any(isinstance(e, S.RecalibrationAdvised) for e in events)
+    engine.recalibrate("drift")
+    assert engine.phase is S.Phase.CALIBRATING and engine.next_step.kind is S.StepKind.CAL_STANDARD
+    bench.vna.drift_db = 0.0
+    cal2 = calibrate(engine)
+    assert cal2.cal_id == "cal2" and engine.active_cal.cal_id == "cal2"
+    assert engine.next_step.kind is S.StepKind.DRIFT  # a new reference for the new cal
