@@ -233,14 +233,19 @@ def check_resource_name(resource: str) -> str:
     from pyvisa import rname
 
     name = resource.strip()
+    hint = "write e.g. TCPIP0::10.0.0.5::inst0::INSTR, TCPIP::host::5025::SOCKET or GPIB0::16::INSTR"
     try:
-        rname.parse_resource_name(name)
+        parsed = rname.parse_resource_name(name)
     except rname.InvalidResourceName as exc:
         raise BadResourceName(
-            f"{resource!r} is not a VISA resource string ({exc}); write e.g. "
-            "TCPIP0::10.0.0.5::inst0::INSTR, TCPIP::host::5025::SOCKET or GPIB0::16::INSTR",
-            resource=resource,
+            f"{resource!r} is not a VISA resource string ({exc}); {hint}", resource=resource
         ) from None
+    port = getattr(parsed, "port", None)
+    if port is not None and not (str(port).isdigit() and 0 < int(port) < 65536):
+        raise BadResourceName(
+            f"{resource!r} is not a VISA resource string (port {port!r} is not 1-65535); {hint}",
+            resource=resource,
+        )
     return name
 
 
@@ -276,6 +281,9 @@ class Link:
         self.backend = backend
         self.settings = settings
         self.error_query = error_query
+        # Read block payloads straight from pyvisa-py's socket (fast, sees a
+        # closed peer at once); False forces the generic VISA read loop.
+        self.direct_socket = True
         self._res = None
 
     # -- lifecycle
@@ -463,6 +471,8 @@ class Link:
     def _socket_session(self):
         """pyvisa-py's TCPIP SOCKET session object, or None for other backends."""
         res = self._require()
+        if not self.direct_socket:
+            return None
         sess = getattr(res.visalib, "sessions", {}).get(res.session)
         if sess is None or not hasattr(sess, "_pending_buffer") or not isinstance(
             getattr(sess, "interface", None), socket.socket
@@ -535,24 +545,29 @@ class Link:
         old_term = res.read_termination
         res.read_termination = None
         try:
-            while len(out) < count:
-                try:
-                    chunk, _status = res.visalib.read(res.session, min(count - len(out), res.chunk_size))
-                except VisaIOError as exc:
-                    if exc.error_code == constants.StatusCode.error_timeout:
-                        raise self._short_or_timeout(len(out), count, command, total, "VisaIOError") from None
-                    raise _translate_visa_error(
-                        exc, f"reading data of {command!r}", self.resource, self.settings.timeout_ms
-                    ) from None
-                except OSError as exc:
-                    raise _translate_os_error(exc, f"reading data of {command!r}", self.resource) from None
-                if not chunk:
-                    raise self._short_or_timeout(len(out), count, command, total, "VisaIOError")
-                out.extend(chunk)
+            # A read that fills the requested count is the normal case here, not news.
+            with res.ignore_warning(constants.StatusCode.success_max_count_read):
+                self._visa_loop(res, out, count, command, total)
         finally:
             if self._res is not None:
                 res.read_termination = old_term
         return bytes(out)
+
+    def _visa_loop(self, res, out: bytearray, count: int, command: str, total: int | None) -> None:
+        while len(out) < count:
+            try:
+                chunk, _status = res.visalib.read(res.session, min(count - len(out), res.chunk_size))
+            except VisaIOError as exc:
+                if exc.error_code == constants.StatusCode.error_timeout:
+                    raise self._short_or_timeout(len(out), count, command, total, "VisaIOError") from None
+                raise _translate_visa_error(
+                    exc, f"reading data of {command!r}", self.resource, self.settings.timeout_ms
+                ) from None
+            except OSError as exc:
+                raise _translate_os_error(exc, f"reading data of {command!r}", self.resource) from None
+            if not chunk:
+                raise self._short_or_timeout(len(out), count, command, total, "VisaIOError")
+            out.extend(chunk)
 
     def _read_line(self, command: str) -> bytes:
         """Rest of a reply up to the read termination (for ASCII data)."""
