@@ -150,8 +150,10 @@ class Agreement:
     bound[f, i, j] is the bound on |S_ij| difference (linear, not dB) at f_hz[f];
     worst is its maximum over frequency and S_ij, reached at at_hz on ``worst_sij``.
     residual is the largest misfit of the error-box model on the raw standards
-    (None when no standards were given): large values mean the two cal sets are
-    not related by error boxes (leakage, a 12-term model that is not 8-term).
+    (None when no standards were given). A 12-term cal set (SOLT) enters through
+    scikit-rf's 12-to-8-term conversion (Marks, 50th ARFTG 1997), which is exact
+    only when its terms are consistent; a residual far above the trace noise
+    means the bound rests on that approximation (noise, leakage, a wrong standard).
     """
 
     cal_a: str
