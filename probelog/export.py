@@ -21,6 +21,8 @@ from contextlib import nullcontext
 from pathlib import Path
 from typing import Any, Callable
 
+import numpy as np
+
 from probelog.manifest import (
     JOURNAL_NAME,
     SessionFormatError,
@@ -121,58 +123,37 @@ def load_networks(index: SessionIndex, root: Path, advance: Callable[[], None]) 
 
 
 def compute_missing_metrics(index: SessionIndex, networks: dict[int, Any]) -> int:
-    """Line metrics for kept line sweeps that were journaled without them, from
-    ``probelog.lines.line_metrics`` when that module exists. Returns the number of
-    rows filled."""
+    """Line metrics for kept line sweeps journaled without them, from
+    ``probelog.lines`` (single-line ABCD extraction at the plan's length, at the
+    same few frequencies the engine journals). Rows that already carry metrics
+    are left alone. Returns the number of rows filled."""
     try:
-        from probelog.lines import line_metrics  # type: ignore[attr-defined]
-    except ImportError:
+        from probelog.lines import default_frequencies, line_metrics, metrics_at
+    except ImportError:  # the core without the line module: metrics stay as journaled
         return 0
     from probelog.manifest import flatten_metrics
 
     names: dict[str, None] = {}
     filled = 0
+    journaled = list(index.metric_columns)
     for row in index.rows:
         if row.get("kind") not in LINE_KINDS or not row.get("length_um"):
             continue
-        if any(row.get(c) is not None for c in index.metric_columns):
+        if any(row.get(c) is not None for c in journaled):
             continue
         ntwk = networks.get(row["seq"])
-        if ntwk is None:
+        if ntwk is None or ntwk.nports != 2:
             continue
         try:
-            flat = flatten_metrics(metrics_at_report_points(line_metrics, ntwk, row["length_um"] * 1e-6))
-        except Exception:  # a line that cannot be extracted stays empty, like a journaled null
-            continue
+            m = line_metrics(ntwk, row["length_um"] * 1e-6)
+            flat = flatten_metrics(metrics_at(m, default_frequencies(ntwk.f)))
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError):
+            continue  # a sweep that is no line (e.g. kept despite a lifted tip) stays empty
         row.update(flat)
         names.update(dict.fromkeys(flat))
         filled += 1
     add_metric_columns(index, names)
     return filled
-
-
-def metrics_at_report_points(line_metrics: Callable, ntwk: Any, length_m: float) -> dict:
-    """Call ``line_metrics(network, length_m)`` and keep a few frequencies (a
-    quarter, half and all of the span, snapped to sweep points) so computed
-    columns look like journaled ones."""
-    import numpy as np
-
-    result = line_metrics(ntwk, length_m)
-    table = result.to_json() if hasattr(result, "to_json") else result
-    if isinstance(table, dict) and any(isinstance(v, (list, tuple)) or hasattr(v, "shape") for v in table.values()):
-        f = np.asarray(ntwk.f)
-        picks = sorted({int(np.argmin(np.abs(f - f[-1] * q))) for q in (0.25, 0.5, 1.0)})
-        out: dict[str, list] = {"freq_hz": [float(f[i]) for i in picks]}
-        for k, v in table.items():
-            arr = np.asarray(v)
-            if arr.shape[:1] == f.shape:
-                if np.iscomplexobj(arr):
-                    out[f"{k}_re"] = [float(arr[i].real) for i in picks]
-                    out[f"{k}_im"] = [float(arr[i].imag) for i in picks]
-                else:
-                    out[k] = [float(arr[i]) for i in picks]
-        return out
-    return table
 
 
 def _load_cal_networks(index: SessionIndex, root: Path) -> dict[str, Any]:

@@ -46,14 +46,16 @@ class Journal:
 @dataclass
 class ChainStatus:
     """Result of re-walking the hash chain: ``ok``, the SHA-256 of the last line
-    (what makes the chain tamper-evident once copied elsewhere), the number of
-    events walked and, when broken, one sentence saying where."""
+    (what makes the chain tamper-evident once copied elsewhere), ``events`` the
+    lines intact from the start, ``total`` the lines read and, when broken, one
+    sentence saying where."""
 
     ok: bool
     last_hash: str
     events: int
     problem: str = ""
     checked_by: str = "probelog.manifest"
+    total: int = 0
 
 
 def read_journal(session_dir: Path) -> Journal:
@@ -104,14 +106,18 @@ def walk_chain(lines: list[bytes]) -> ChainStatus:
     """Re-walk the hash chain: each event's ``prev`` is the SHA-256 hex of the
     previous line's bytes (64 zeros for the first), and ``seq`` counts 1, 2, ..."""
     prev = ZERO_HASH
+    problem = ""
+    intact = 0
     for i, line in enumerate(lines, start=1):
         ev = json.loads(line)
-        if ev.get("seq") != i:
-            return ChainStatus(False, prev, i - 1, f"line {i}: seq is {ev.get('seq')}, expected {i}")
-        if ev.get("prev") != prev:
-            return ChainStatus(False, prev, i - 1, f"line {i} (seq {i}): 'prev' does not match the SHA-256 of line {i - 1}")
+        if not problem and ev.get("seq") != i:
+            problem = f"line {i}: seq is {ev.get('seq')}, expected {i}"
+        elif not problem and ev.get("prev") != prev:
+            problem = f"line {i}: 'prev' is not the SHA-256 of line {i - 1} (line {i - 1} edited, or lines removed)"
+        if not problem:
+            intact = i
         prev = hashlib.sha256(line).hexdigest()
-    return ChainStatus(True, prev, len(lines))
+    return ChainStatus(not problem, prev, intact, problem, total=len(lines))
 
 
 def chain_status(session_dir: Path, journal: Journal) -> ChainStatus:
@@ -128,10 +134,13 @@ def chain_status(session_dir: Path, journal: Journal) -> ChainStatus:
     except Exception as exc:  # a verifier crash must not stop the bundle
         own.problem = (own.problem + "; " if own.problem else "") + f"journal.verify failed: {exc}"
         return own
-    ok = bool(getattr(report, "ok", own.ok))
-    problems = getattr(report, "problems", None) or getattr(report, "errors", None) or []
-    problem = "; ".join(str(p) for p in problems) if not ok else ""
-    return ChainStatus(ok and own.ok, own.last_hash, own.events, problem or own.problem,
+    # Data-file problems are reported by the export against the copies; here
+    # only the journal's own chain counts.
+    chain_problems = [p for p in getattr(report, "problems", [])
+                      if str(getattr(p, "file", "")).endswith(JOURNAL_NAME)]
+    text = "; ".join(f"line {p.line}: {p.message}" if p.line else str(p.message) for p in chain_problems)
+    ok = own.ok and not chain_problems
+    return ChainStatus(ok, own.last_hash, own.events, text or own.problem, total=own.total,
                        checked_by="probelog.journal.verify")
 
 
@@ -447,7 +456,7 @@ def readme_text(index: SessionIndex, chain: ChainStatus) -> str:
         f"Wafer {opened.get('wafer', '?')} (lot {opened.get('lot', '?')}), chip {opened.get('chip', '?')}, "
         f"plan {opened.get('plan_name', '?')}, operator {opened.get('operator', '?')}.",
         f"Journal chain: {'intact' if chain.ok else 'BROKEN: ' + chain.problem}; "
-        f"{chain.events} events; SHA-256 of the last line: {chain.last_hash}",
+        f"{chain.total} events; SHA-256 of the last line: {chain.last_hash}",
         "Keep that hash somewhere else: with it, any later edit of journal.jsonl shows.",
         "",
         "## Contents",

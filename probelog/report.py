@@ -135,12 +135,13 @@ def _header(inp: ReportInputs) -> str:
          else f"{'completed' if closed.get('completed') else 'stopped early'}: {closed.get('summary', '')}"),
     ]
     state = "intact" if chain.ok else "BROKEN"
+    count = f"{chain.total} events" if chain.ok else f"intact through line {chain.events} of {chain.total}"
     cls = "ok" if chain.ok else "bad"
     torn = "<p class='bad'>The journal ended in a torn line (crash while writing); it was not read.</p>" if inp.torn_tail else ""
     return (
         f"<h1>Probing session {_esc(o.get('session_id'))}</h1>"
         + _table(("", ""), rows, "kv")
-        + f'<div class="chain {cls}"><b>Journal hash chain: {state}</b> ({chain.events} events, '
+        + f'<div class="chain {cls}"><b>Journal hash chain: {state}</b> ({count}, '
         f"checked by {_esc(chain.checked_by)}){'. ' + _esc(chain.problem) if chain.problem else ''}<br>"
         f"SHA-256 of the last journal line: <code>{chain.last_hash}</code><br>"
         "<small>Copy this hash off the machine: with it, any later edit of the journal shows.</small></div>"

@@ -97,11 +97,13 @@ def media_of(fam: dict) -> DefinedGammaZ0:
 
 
 def known_metrics(fam: dict, f_hz: np.ndarray) -> dict:
-    """Z0 (ohm), alpha (dB/mm), eps_eff and Q = beta / (2 alpha) (Pozar 4th ed., ch. 2)."""
+    """Z0 (ohm), alpha (dB/mm), eps_eff and Q = beta / (2 alpha) (Pozar 4th ed., ch. 2),
+    keyed as the engine journals them (probelog.lines.JSON_KEYS)."""
     beta = 2 * np.pi * f_hz * np.sqrt(fam["eps_eff"]) / C0
     return {
-        "freq_hz": list(map(float, f_hz)),
-        "z0_re_ohm": [fam["z0"]] * len(f_hz),
+        "f_hz": list(map(float, f_hz)),
+        "z0_re": [fam["z0"]] * len(f_hz),
+        "z0_im": [0.0] * len(f_hz),
         "alpha_db_per_mm": [fam["alpha"] * DB_PER_NP / 1000] * len(f_hz),
         "eps_eff": [fam["eps_eff"]] * len(f_hz),
         "q": list(map(float, beta / (2 * fam["alpha"]))),
@@ -281,11 +283,11 @@ def test_journaled_metrics_reach_the_manifest(bundle):
         if r["site"] in FAMILIES:
             fam = FAMILIES[r["site"]]
             ref = known_metrics(fam, np.array([40e9]))
-            assert float(r["z0_re_ohm@40GHz"]) == pytest.approx(fam["z0"])
+            assert float(r["z0_re@40GHz"]) == pytest.approx(fam["z0"])
             assert float(r["eps_eff@67GHz"]) == pytest.approx(fam["eps_eff"])
             assert float(r["q@40GHz"]) == pytest.approx(ref["q"][0])
         else:
-            assert r["z0_re_ohm@40GHz"] == ""
+            assert r["z0_re@40GHz"] == ""
 
 
 def test_touchstone_tree_opens_in_skrf_and_matches_the_model(bundle):
@@ -313,6 +315,31 @@ def test_readme_explains_every_column(bundle):
     assert "`chk_line_window`" in readme
 
 
+def test_metrics_computed_at_export_match_the_defined_line(tmp_path):
+    """Sweeps journaled without metrics: the export extracts them from the
+    corrected Touchstone files. Reference: the Z0 and gamma given to scikit-rf's
+    DefinedGammaZ0 (Pozar 4th ed. ch. 2 relations for alpha, eps_eff, Q)."""
+    session = write_session(tmp_path / "s", journal_metrics=False)
+    out = export_bundle(session, tmp_path / "b", progress=False)
+    rows = [r for r in manifest_rows(out) if r["site"] in FAMILIES]
+    assert len(rows) == 6
+    checked = 0
+    for r in rows:
+        fam = FAMILIES[r["site"]]
+        for col, value in r.items():
+            if "@" not in col or value == "":
+                continue
+            name, f_label = col.split("@")
+            f_hz = float(f_label[:-3]) * 1e9
+            ref = known_metrics(fam, np.array([f_hz]))
+            if name in ("z0_re", "alpha_db_per_mm", "eps_eff", "q"):
+                assert float(value) == pytest.approx(ref[name][0], rel=1e-6), (r["site"], col)
+                checked += 1
+    assert checked >= 6 * 4 * 3
+    page = (out / "report.html").read_text()
+    assert "No line metrics" not in page
+
+
 # ---------------------------------------------------------------- open_session
 
 
@@ -327,7 +354,7 @@ def test_open_session_on_bundle_gives_network_sets(bundle):
     net = s.networks("ln-cpw-m9-r2-l500", die=(4, 4))
     assert len(net) == 1 and net[0].name == "d4_4/ln-cpw-m9-r2-l500/L2"
     assert abs(net[0].s[30, 1, 0]) > 0.9  # a 0.5 mm line passes most power; the open would not
-    assert s.manifest[0]["die_col"] == 3 and isinstance(s.manifest[0]["z0_re_ohm@40GHz"], float)
+    assert s.manifest[0]["die_col"] == 3 and isinstance(s.manifest[0]["z0_re@40GHz"], float)
     df = s.to_pandas()
     assert len(df) == 8 and "chk_passivity" in df.columns
     assert s.chain.ok
