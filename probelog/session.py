@@ -261,9 +261,12 @@ class Engine:
     def new(cls, plan, bench: Bench, sessions_root: Path | str, operator: str = "",
             session_id: str | None = None) -> "Engine":
         """Create ``sessions_root/<session_id>/`` with a fresh journal and start."""
-        from probelog.journal import Journal
+        from probelog.journal import Journal, JournalError, new_session_id
 
-        journal = Journal.create(Path(sessions_root), session_id)
+        try:
+            journal = Journal.create(Path(sessions_root), session_id or new_session_id(plan.wafer.id))
+        except JournalError as exc:
+            raise EngineError(str(exc)) from None
         try:
             return cls(plan, bench, journal, operator)
         except BaseException:
@@ -278,9 +281,12 @@ class Engine:
         files adopted). State is rebuilt from the events alone; only the active
         cal set and the drift reference are read back from disk.
         """
-        from probelog.journal import Journal
+        from probelog.journal import Journal, JournalError
 
-        journal = Journal.open(Path(session_dir))
+        try:
+            journal = Journal.open(Path(session_dir))
+        except JournalError as exc:
+            raise EngineError(str(exc)) from None
         try:
             events = list(_journal_events(journal))
             opened = next((e for e in events if e.type == "session-opened"), None)
@@ -551,7 +557,8 @@ class Engine:
             "metrics": metrics, "touchdowns": dict(self._touchdowns),
         })
         self._landings[(step.die, step.site)] = step.landing
-        self._previous[(step.die, step.site)] = use
+        if verdict is not Verdict.FAIL:  # repeatability against a lifted tip says nothing
+            self._previous[(step.die, step.site)] = use
         self._count_for_drift()
         out = LandingOutcome(step, raw, cor, checks, verdict, metrics, ev.seq,
                              {k: v["path"] for k, v in files.items()})
@@ -624,9 +631,11 @@ class Engine:
             ok, message = True, f"{method.upper()} solved from {len(measured)} standards"
         except Exception as exc:  # a singular or inconsistent set of standards
             calset, ok, message = None, False, f"{method.upper()} could not be solved: {exc}"
-        ref = self._save_calset(calset, cal_dir) if calset is not None else None
+        refs = self._save_calset(calset, cal_dir) if calset is not None else []
+        ref = refs[0] if refs else None
         ev = self._append("cal-computed", {"cal_id": self._cal_id, "method": method, "standards": names,
-                                           "file": ref, "ok": ok, "message": message})
+                                           "file": ref, "files": refs, "ok": ok, "message": message,
+                                           "summary": calset.summary() if calset is not None else None})
         outcome = CalOutcome(self._cal_id, method, ok, message, calset, [], None,
                              Verdict.PASS if ok else Verdict.FAIL, ev.seq, ref["path"] if ref else None)
         if not ok:
@@ -781,9 +790,9 @@ class Engine:
         ref = self.journal.write_file(f"{stem}.s{ntwk.nports}p", data)
         return {"path": str(ref.path), "sha256": ref.sha256}
 
-    def _save_calset(self, calset, cal_dir: str) -> dict:
-        refs = _save_calset(calset, self.journal, cal_dir)
-        return {"path": str(refs[0].path), "sha256": refs[0].sha256}
+    def _save_calset(self, calset, cal_dir: str) -> list[dict]:
+        """FileRef dicts of the saved cal set, calset.json first."""
+        return [{"path": str(r.path), "sha256": r.sha256} for r in _save_calset(calset, self.journal, cal_dir)]
 
     def _standard_networks(self) -> dict[str, skrf.Network]:
         """Raw standards keyed by site name (as calibration.solve wants them)."""
@@ -963,7 +972,8 @@ class Engine:
         return self.journal.append(type_, payload)
 
     def _last_seq(self) -> int:
-        return int(self.journal.last_seq)
+        last = self.journal.last
+        return int(last.seq) if last is not None else 0
 
     def _set_phase(self, phase: Phase, seq: int) -> None:
         if phase is not self._phase:
@@ -1094,7 +1104,15 @@ def _plan_from_opened(payload: dict, session_dir: Path):
     text = payload.get("plan_text")
     if not text:
         raise EngineError(f"{session_dir}: session-opened carries no plan text; cannot resume")
-    return load_plan_text(text, source=payload.get("plan_file") or f"{session_dir}/journal.jsonl")
+    source = payload.get("plan_file") or f"{session_dir}/journal.jsonl"
+    # A relative kit path resolves against the plan's folder, as when it was loaded.
+    if source.endswith("(built-in)"):
+        from importlib import resources
+
+        base = Path(str(resources.files("probelog") / "plans"))
+    else:
+        base = Path(source).resolve().parent if Path(source).is_file() else session_dir
+    return load_plan_text(text, source, base_dir=base)
 
 
 def _save_calset(calset, journal, cal_dir: str) -> list:

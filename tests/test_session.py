@@ -11,7 +11,8 @@ import pytest
 import probelog.session as S
 from probelog.plan import load_plan_text
 from probelog.verdicts import Verdict
-from tests._engine_fakes import FakeJournal, fake_bench, ideal, plan_text, touchstone_bytes
+from probelog.journal import Journal, verify
+from tests._engine_fakes import fake_bench, ideal, plan_text, touchstone_bytes
 
 
 @pytest.fixture(autouse=True)
@@ -25,7 +26,7 @@ def _touchstone(monkeypatch):
 def make(tmp_path, **kw):
     plan = load_plan_text(plan_text(**kw), "fake.toml")
     bench = fake_bench()
-    journal = FakeJournal(tmp_path / "s1")
+    journal = Journal.create(tmp_path, "s1")
     events: list = []
     engine = S.Engine(plan, bench, journal, operator="tester")
     engine.subscribe(events.append)
@@ -75,6 +76,7 @@ def test_walk_calibrates_checks_and_journals_in_order(tmp_path):
     assert landing.payload["metrics"]["eps_eff"][0] == pytest.approx(6.35, rel=1e-6)  # fake's eps_eff
     engine.close()
     assert journal.events()[-1].type == "session-closed" and journal.events()[-1].payload["completed"]
+    assert verify(journal.root).ok  # every hash in the chain and every data file checks out
     kinds = [type(e).__name__ for e in events]
     assert "CalibrationComputed" in kinds and kinds[-1] == "SessionClosed"
 
@@ -83,7 +85,7 @@ def test_power_above_the_limit_is_refused(tmp_path):
     plan = load_plan_text(plan_text(), "fake.toml")
     hot = dataclasses.replace(plan, vna=dataclasses.replace(plan.vna, power_dbm=0.0))
     with pytest.raises(S.EngineError, match="above the plan's limit"):
-        S.Engine(hot, fake_bench(), FakeJournal(tmp_path / "s"), "t")
+        S.Engine(hot, fake_bench(), Journal.create(tmp_path, "s"), "t")
 
 
 def test_decisions_need_reasons_and_the_right_phase(tmp_path):
