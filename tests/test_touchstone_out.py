@@ -1,0 +1,91 @@
+"""Touchstone bytes with a probelog header round-trip through scikit-rf's reader."""
+
+import json
+
+import numpy as np
+import pytest
+import skrf
+
+from probelog.touchstone_out import network_to_touchstone, read_header
+
+HEADER = {
+    "session": "20261201-224501-QF2611-W07",
+    "seq": 17,
+    "die": (4, 3),
+    "site": "ln-cpw-m9-r2-l500",
+    "landing": 2,
+    "cal": "cal-1",
+    "start_hz": 1e9,
+    "stop_hz": 110e9,
+    "points": 201,
+    "ifbw_hz": 1e3,
+    "power_dbm": -10.0,
+    "note": "tips re-landed after a skate; é",
+}
+
+
+def _random_network(nports: int, n: int, seed: int) -> skrf.Network:
+    rng = np.random.default_rng(seed)
+    # Magnitudes over many decades so the text format must keep full precision.
+    mag = 10.0 ** rng.uniform(-9, 0.5, size=(n, nports, nports))
+    s = mag * np.exp(1j * rng.uniform(-np.pi, np.pi, size=(n, nports, nports)))
+    f = skrf.Frequency.from_f(np.linspace(1e9, 110e9, n), unit="Hz")
+    return skrf.Network(frequency=f, s=s, z0=50.0)
+
+
+def _read_back(data: bytes, tmp_path, nports: int) -> skrf.Network:
+    path = tmp_path / f"back.s{nports}p"
+    path.write_bytes(data)
+    return skrf.Network(str(path))
+
+
+@pytest.mark.parametrize("nports", [1, 2])
+def test_round_trip_through_skrf_to_1e12(nports, tmp_path):
+    # scikit-rf's reader is the reference (Touchstone v1.1, IBIS).
+    ntwk = _random_network(nports, 201, seed=nports)
+    data = network_to_touchstone(ntwk, HEADER)
+    back = _read_back(data, tmp_path, nports)
+    np.testing.assert_array_equal(back.f, ntwk.f)
+    rel = np.abs(back.s - ntwk.s) / np.abs(ntwk.s)
+    assert rel.max() < 1e-12
+    np.testing.assert_allclose(back.z0, 50.0)
+
+
+def test_option_line_and_header_come_first(tmp_path):
+    data = network_to_touchstone(_random_network(2, 5, seed=3), HEADER)
+    text = data.decode("ascii")
+    lines = text.splitlines()
+    option = next(i for i, l in enumerate(lines) if l.startswith("#"))
+    assert lines[option].split()[:5] == ["#", "Hz", "S", "RI", "R"]
+    assert float(lines[option].split()[5]) == 50.0
+    assert all(l.startswith("! probelog ") for l in lines[: len(HEADER)])
+    # 2-port v1.1 data lines: f, then S11, S21, S12, S22 as re/im pairs (9 columns).
+    data_lines = [l for l in lines[option + 1:] if l and not l.startswith("!")]
+    assert len(data_lines) == 5 and all(len(l.split()) == 9 for l in data_lines)
+
+
+def test_header_reads_back():
+    data = network_to_touchstone(_random_network(2, 3, seed=4), HEADER)
+    head = read_header(data)
+    assert head["session"] == HEADER["session"]
+    assert head["site"] == HEADER["site"]
+    assert json.loads(head["die"]) == [4, 3]
+    assert float(head["start_hz"]) == 1e9 and int(head["seq"]) == 17
+    assert json.loads(head["note"]) == HEADER["note"]  # spaces and non-ASCII are JSON-escaped
+
+
+def test_comments_of_the_network_are_kept(tmp_path):
+    ntwk = _random_network(1, 4, seed=5)
+    ntwk.comments = "raw from the analyzer"
+    back = _read_back(network_to_touchstone(ntwk, {"seq": 1}), tmp_path, 1)
+    assert "probelog seq=1" in back.comments
+    assert "raw from the analyzer" in back.comments
+
+
+def test_unusable_inputs_are_refused():
+    ntwk = _random_network(2, 3, seed=6)
+    with pytest.raises(ValueError, match="header key"):
+        network_to_touchstone(ntwk, {"bad key": 1})
+    ntwk.z0 = np.array([50.0, 25.0])
+    with pytest.raises(ValueError, match="one real reference impedance"):
+        network_to_touchstone(ntwk, {})
