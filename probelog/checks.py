@@ -248,6 +248,19 @@ def _stub_rotation(f_hz, gamma, length_m, eps_lo, limits) -> CheckResult:
     )
 
 
+# Highest eps_eff we expect on-wafer when the plan gives no window (GaAs eps_r 12.9, Si 11.7)
+_EPS_EFF_CEILING = 13.0
+
+
+def _stub_is_short_at(f0_hz: float, length_um, expectation: Mapping[str, Any], limits: Limits) -> bool:
+    """True when a stub is electrically short at ``f0_hz`` (round trip under 90 deg),
+    so it must still read like its termination there."""
+    if length_um is None:
+        return f0_hz <= limits.contact_low_hz
+    eps_hi = float(expectation.get("eps_eff_window", [1.0, _EPS_EFF_CEILING])[1])
+    return 2.0 * 360.0 * f0_hz * float(length_um) * 1e-6 * np.sqrt(eps_hi) / C0 < 90.0
+
+
 def contact(
     f_hz: np.ndarray,
     s: np.ndarray,
@@ -264,7 +277,8 @@ def contact(
     - line: low band only, fail only (a line need not be 50 ohm), plus |S21|.
     - short: Re(Sii) at the lowest frequency must be < 0, then the median Re(Z) over
       the low band (f <= ``contact_low_hz``) is the contact resistance (ohm).
-    - open-stub / short-stub: must read as open / short at the lowest frequency, and
+    - open-stub / short-stub: must read as open / short at the lowest frequency (when the
+      stub is electrically short there), and
       turn clockwise by at least a fraction of 2 beta l (with eps_eff at the low end of
       the plan's window, or 1 when unknown) over the sweep; needs ``length_um``.
     ``z0`` is the port reference impedance (ohm).
@@ -290,12 +304,13 @@ def contact(
             refl = _match(f_hz, gamma, low, None, limits.match_fail_db, "line")
         return _worst([refl, _transmission(f_hz, s, low, limits)])
     if kind in ("open-stub", "short-stub"):
-        wrong = _reads_as(f_hz, gamma, want_short=kind == "short-stub")
-        if wrong is not None:
-            return wrong
         length_um = expectation.get("length_um")
+        if _stub_is_short_at(f_hz[0], length_um, expectation, limits):
+            wrong = _reads_as(f_hz, gamma, want_short=kind == "short-stub")
+            if wrong is not None:
+                return wrong
         if length_um is None:
-            return _na("contact", f"the {kind} reads right at {_ghz(f_hz[0])}; rotation not judged without length_um")
+            return _na("contact", f"rotation of the {kind} is not judged without length_um")
         eps_lo = float(expectation.get("eps_eff_window", [1.0])[0])
         return _stub_rotation(f_hz, gamma, float(length_um) * 1e-6, max(eps_lo, 1.0), limits)
     raise ValueError(f"unknown site kind '{kind}' (known: {', '.join(KINDS)})")

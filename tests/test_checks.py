@@ -139,6 +139,17 @@ def test_open_stub_needs_its_rotation(f):
     check(contact(f.f, pair(stub).s, "open-stub", LIM, {}), Verdict.NA, "contact")
 
 
+def test_stub_swept_from_high_frequency_is_not_misread():
+    # from 50 GHz an 800 um stub at eps_eff 6 has turned 2*360*50e9*0.8e-3*sqrt(6)/c = 235 deg already
+    # (Pozar eq. 2.42), so Re(S11) < 0 there is right for an open stub
+    f = skrf.Frequency(50, 110, 601, "GHz")
+    med = medium(f)
+    stub = med.line(800e-6, "m") ** med.open()
+    assert stub.s[0, 0, 0].real < 0
+    exp = {"length_um": 800.0, "eps_eff_window": [5.0, 7.0]}
+    check(contact(f.f, pair(stub).s, "open-stub", LIM, exp), Verdict.PASS, "contact")
+
+
 def test_short_stub_that_reads_as_an_open(f, med):
     sstub = med.line(800e-6, "m") ** med.short()
     exp = {"length_um": 800.0}
