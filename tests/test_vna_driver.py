@@ -353,3 +353,46 @@ def test_bad_resource_string_is_named():
 def test_generic_dialect_loads():
     d = load_dialect("generic-vna", "vna")
     assert d.command("set_start_hz", hz=1e9) == "SENSe:FREQuency:STARt 1000000000"
+
+
+# --------------------------------------------------------------------------- dialect files
+
+
+def _variant(tmp_path, old: str, new: str, name: str = "my-vna.toml") -> Path:
+    text = (ROOT / "drivers/dialects/generic-vna.toml").read_text()
+    assert old in text
+    p = tmp_path / name
+    p.write_text(text.replace(old, new))
+    return p
+
+
+@pytest.mark.parametrize(
+    "old, new, match",
+    [
+        ('fetch_sparams = "TRACe:DATA? SPARameters"\n', "", r"my-vna\.toml: \[commands\] is missing 'fetch_sparams'"),
+        ('reset = "*RST"', 'reset = "*RST"\nrest = "*RST"', r"my-vna\.toml: \[commands\] has unknown operation 'rest' \(line \d+\)"),
+        ("{hz:.12g}", "{freq:.12g}", r"set_start_hz \(line \d+\) must use placeholders \['hz'\], found \['freq'\]"),
+        ("{n:d}", "{n:s}", r"set_points \(line \d+\): placeholder format does not fit"),
+        ('byte_order = "little"', 'byte_order = "middle"', r"byte_order \(line \d+\) must be \"little\" or \"big\""),
+        ('timeout_ms = 10000', 'timeout_ms = "10 s"', r"timeout_ms \(line \d+\) must be a positive integer"),
+        ('order_1port = ["S11"]', 'order_1port = ["S22"]', r"\[data\] order_1port \(line \d+\) must list each of \['S11'\]"),
+        ("[commands]", "[commands]\n[extras]", r"unknown section \[extras\]"),
+        ('name = "generic-scpi"', 'name = ', r"my-vna\.toml: not valid TOML"),
+    ],
+)
+def test_bad_dialects_are_named_with_file_and_key(tmp_path, old, new, match):
+    with pytest.raises(ValueError, match=match):
+        load_dialect(_variant(tmp_path, old, new), "vna")
+
+
+def test_missing_dialect_file_is_named(tmp_path):
+    with pytest.raises(ValueError, match=r"nope\.toml: cannot read dialect file"):
+        load_dialect(tmp_path / "nope.toml", "vna")
+
+
+def test_prober_dialect_loads_and_rejects_vna_keys():
+    d = load_dialect("generic-prober", "prober")
+    assert d.command("move_site", col=3, row=4, x_um=200, y_um=600) == "STAGe:MOVE 3,4,200.000,600.000"
+    assert d.replies == {"contact": "CONT", "separated": "SEP"}
+    with pytest.raises(ValueError, match=r"generic-vna\.toml: unknown section \[data\]"):
+        load_dialect("generic-vna", "prober")
