@@ -398,7 +398,22 @@ def index_session(journal: Journal) -> SessionIndex:
         metric_cols.update(dict.fromkeys(flat))
         rows.append(row)
     return SessionIndex(opened, sites, rows, landings, decisions, notes, cal_events, drifts,
-                        errors, closed, check_units, list(metric_cols))
+                        errors, closed, check_units, sorted(metric_cols, key=metric_sort_key))
+
+
+_METRIC_ORDER = ("z0", "alpha", "loss", "eps", "q", "beta", "gamma", "r_", "l_", "g_", "c_")
+
+
+def metric_sort_key(col: str) -> tuple:
+    """Z0, loss, eps_eff and Q first (what analysts read), then the rest; each
+    metric's frequencies in ascending order."""
+    base, _, freq = col.partition("@")
+    rank = next((i for i, p in enumerate(_METRIC_ORDER) if base.lower().startswith(p)), len(_METRIC_ORDER))
+    try:
+        f = float(freq[:-3]) if freq else 0.0
+    except ValueError:
+        f = 0.0
+    return (rank, base, f)
 
 
 def add_metric_columns(index: SessionIndex, names: Iterable[str]) -> None:
@@ -406,6 +421,7 @@ def add_metric_columns(index: SessionIndex, names: Iterable[str]) -> None:
     for n in names:
         if n not in index.metric_columns:
             index.metric_columns.append(n)
+    index.metric_columns.sort(key=metric_sort_key)
 
 
 def write_manifest_csv(path: Path, index: SessionIndex) -> Path:

@@ -170,16 +170,54 @@ def _summary(inp: ReportInputs) -> str:
     return "<h2 id='summary'>Summary</h2>" + _table(("", ""), rows, "kv")
 
 
-def _wafer_map(inp: ReportInputs) -> str:
-    idx, metric = inp.index, inp.metric or default_metric(inp.index)
+COUNT_COLUMNS = {"retries", "landing"}
+
+
+def die_values(rows: list[dict], metric: str) -> tuple[dict[tuple, float], str]:
+    """One number per die (col, row) for the wafer map, and what it means.
+
+    Counts (retries) are summed over the die. Other columns are compared site
+    by site so different structures do not mix: with several sites, each value
+    becomes its deviation from the wafer median of the same site (percent, or
+    in the column's unit when a site median is zero or signs differ) and the
+    die shows the median deviation; with one site, the die shows its median.
+    """
+    vals = [(r["die_col"], r["die_row"], r["site"], float(r[metric])) for r in rows
+            if isinstance(r.get(metric), (int, float)) and math.isfinite(r[metric])]
+    if not vals:
+        return {}, metric
     per_die: dict[tuple, list[float]] = defaultdict(list)
+    if metric in COUNT_COLUMNS:
+        for c, r, _s, v in vals:
+            per_die[(c, r)].append(v)
+        return {d: float(np.sum(v)) for d, v in per_die.items()}, f"{metric}, total per die"
+    by_site: dict[str, list[float]] = defaultdict(list)
+    for _c, _r, site, v in vals:
+        by_site[site].append(v)
+    if len(by_site) == 1:
+        for c, r, _s, v in vals:
+            per_die[(c, r)].append(v)
+        return {d: float(np.median(v)) for d, v in per_die.items()}, f"{metric}, median per die ({vals[0][2]})"
+    med = {s: float(np.median(v)) for s, v in by_site.items()}
+    signs = {np.sign(m) for m in med.values()}
+    percent = 0.0 not in signs and len(signs) == 1 and all(
+        np.sign(v) == np.sign(med[s]) for _c, _r, s, v in vals)
+    for c, r, s, v in vals:
+        per_die[(c, r)].append(100 * (v / med[s] - 1) if percent else v - med[s])
+    unit = "%" if percent else "difference"
+    return ({d: float(np.median(v)) for d, v in per_die.items()},
+            f"{metric}: median over the die of each site's deviation from its wafer median ({unit})")
+
+
+def _wafer_map(inp: ReportInputs) -> str:
+    from matplotlib.colors import TwoSlopeNorm
+
+    idx, metric = inp.index, inp.metric or default_metric(inp.index)
+    values, meaning = die_values(idx.rows, metric)
     worst: dict[tuple, str] = {}
     rank = {"pass": 1, "warn": 2, "fail": 3}
     for r in idx.rows:
         d = (r["die_col"], r["die_row"])
-        v = r.get(metric)
-        if isinstance(v, (int, float)) and math.isfinite(v):
-            per_die[d].append(float(v))
         if rank.get(r.get("verdict"), 0) >= rank.get(worst.get(d, ""), 0):
             worst[d] = r.get("verdict")
     head = f"<h2 id='wafer'>Wafer map: {_esc(metric)}</h2>"
@@ -189,28 +227,37 @@ def _wafer_map(inp: ReportInputs) -> str:
     rows = [d[1] for d in worst]
     c0, c1, r0, r1 = min(cols), max(cols), min(rows), max(rows)
     grid = np.full((r1 - r0 + 1, c1 - c0 + 1), np.nan)
-    for (c, r), vals in per_die.items():
-        grid[r - r0, c - c0] = float(np.median(vals))
+    for (c, r), v in values.items():
+        grid[r - r0, c - c0] = v
     fig = Figure(figsize=(7.5, 6.0))
     ax = fig.add_subplot()
     extent = (c0 - 0.5, c1 + 0.5, r1 + 0.5, r0 - 0.5)
-    im = ax.imshow(grid, cmap="viridis", extent=extent, interpolation="nearest")
+    deviation = meaning.endswith(("(%)", "(difference)"))
+    finite = grid[np.isfinite(grid)]
+    norm, cmap = None, "viridis"
+    if deviation and finite.size and finite.min() < 0 < finite.max():
+        norm, cmap = TwoSlopeNorm(0.0, finite.min(), finite.max()), "RdBu_r"
+    im = ax.imshow(grid, cmap=cmap, norm=norm, extent=extent, interpolation="nearest")
     cb = fig.colorbar(im, ax=ax, shrink=0.85)
-    cb.set_label(f"median {metric} over the die's kept sweeps")
+    cb.set_label(metric + (" deviation" if deviation else ""), fontsize=8)
     for (c, r), v in worst.items():
         val = grid[r - r0, c - c0]
-        txt = "" if np.isnan(val) else f"{val:.3g}"
         ax.add_patch(_die_frame(c, r, VERDICT_COLOURS.get(v, "#9e9e9e")))
-        ax.text(c, r, txt, ha="center", va="center", fontsize=7, color="white" if not np.isnan(val) else "black")
+        if np.isnan(val):
+            continue
+        red, green, blue, _ = im.cmap(im.norm(val))
+        ink = "black" if 0.299 * red + 0.587 * green + 0.114 * blue > 0.55 else "white"
+        ax.text(c, r, f"{val:.3g}", ha="center", va="center", fontsize=7, color=ink)
     ax.set_xticks(range(c0, c1 + 1))
     ax.set_yticks(range(r0, r1 + 1))
     ax.set_xlabel("die column")
     ax.set_ylabel("die row")
-    ax.set_title(f"{idx.opened.get('wafer', '')}: frame = worst kept verdict on the die", fontsize=9)
+    ax.set_title(f"{idx.opened.get('wafer', '')}; die frame: worst kept verdict "
+                 "(green pass, orange warn, red fail)", fontsize=9)
     fig.tight_layout()
-    n = sum(len(v) for v in per_die.values())
-    note = "" if n else f"<p class='none'>No kept sweep has a numeric value for '{_esc(metric)}'.</p>"
-    return head + _png(fig, f"wafer map of {metric}") + note
+    note = ("" if values else f"<p class='none'>No kept sweep has a numeric value for '{_esc(metric)}'.</p>")
+    return head + f"<p>{_esc(meaning)}. Choose another column with <code>--metric</code>.</p>" \
+        + _png(fig, f"wafer map of {metric}") + note
 
 
 def _die_frame(c: int, r: int, colour: str):
@@ -362,14 +409,29 @@ def _line_trends(inp: ReportInputs) -> str:
             med = [np.median(y[x == u]) for u in ux]
             ax.plot(ux, med, "-", color=line.get_color(), lw=1.4)
         ax.set_xscale("log")
+        ticks = sorted({r["w_over_g"] for r in lines})
+        ax.set_xticks(ticks, [f"{t:.3g}" for t in ticks])
+        ax.minorticks_off()
         ax.set_xlabel("width / gap (declared)")
-        ax.set_ylabel(col)
+        ax.set_ylabel(AXIS_LABELS.get(col.split("@")[0], col.split("@")[0]))
         ax.grid(alpha=0.3, which="both")
         if i == 0:
             ax.legend(fontsize=7, title="line type, metal", title_fontsize=7)
     fig.tight_layout()
     return (head + f"<p>At {fsel[:-3]} GHz; dots: kept sweeps (all dies), lines: median per geometry. "
             "Every line length of a family is pooled.</p>" + _png(fig, "line metrics against width to gap"))
+
+
+AXIS_LABELS = {"z0_re": "Re Z0 (ohm)", "alpha_db_per_mm": "loss (dB/mm)", "alpha_np_per_m": "alpha (Np/m)",
+               "eps_eff": "eps_eff", "q": "Q = beta / (2 alpha)"}
+MAX_TABLE_ROWS = 60
+
+
+def _capped(rows: list, what: str) -> tuple[list, str]:
+    """At most MAX_TABLE_ROWS rows in the page; the rest is in the manifest/journal."""
+    if len(rows) <= MAX_TABLE_ROWS:
+        return rows, ""
+    return rows[:MAX_TABLE_ROWS], f"<p class='none'>{len(rows) - MAX_TABLE_ROWS} more {what} not shown here.</p>"
 
 
 def _checks(inp: ReportInputs) -> str:
@@ -390,12 +452,16 @@ def _checks(inp: ReportInputs) -> str:
                     worst = (v, f"{val:.4g} {unit} at d({r['die_col']}, {r['die_row']}) {r['site']}")
         rows.append([name, counts.get("pass", 0), counts.get("warn", 0), counts.get("fail", 0),
                      counts.get("n/a", 0), worst[1] if worst else ""])
-    flagged = [[r["die_col"], r["die_row"], r["site"], r["landing"], r["verdict"]]
+    flagged = [[r["die_col"], r["die_row"], r["site"], r["landing"], r["verdict"],
+                "; ".join(f"{name}: {r.get(check_column(name))}" for name in idx.check_units
+                          if r.get(check_column(name)) in ("warn", "fail"))]
                for r in idx.rows if r.get("verdict") in ("warn", "fail")]
+    flagged.sort(key=lambda x: (x[4] != "fail", x[0], x[1], x[2]))
+    flagged, more = _capped(flagged, "rows (filter verdict in manifest.csv)")
     return ("<h2 id='checks'>Checks on kept sweeps</h2>"
             + _table(("check", "pass", "warn", "fail", "n/a", "worst flagged"), rows)
-            + "<h3>Kept despite a warn or fail verdict</h3>"
-            + _table(("die col", "die row", "site", "landing", "verdict"), flagged))
+            + f"<h3>Kept despite a warn or fail verdict ({sum(1 for r in idx.rows if r.get('verdict') in ('warn', 'fail'))})</h3>"
+            + _table(("die col", "die row", "site", "landing", "verdict", "flagged by"), flagged) + more)
 
 
 def _retries_and_notes(inp: ReportInputs) -> str:
@@ -425,8 +491,10 @@ def _retries_and_notes(inp: ReportInputs) -> str:
     drifts = [[ev["ts"], _die(ev["payload"]), ev["payload"].get("site"), ev["payload"].get("verdict"),
                "; ".join(f"{c.get('name')}: {c.get('verdict')}" for c in ev["payload"].get("checks") or [])]
               for ev in idx.drifts]
-    return ("<h2 id='retries'>Retries</h2>"
-            + _table(("die", "site", "landings", "verdicts in order", "re-land reasons"), retry_rows)
+    n_retry = len(retry_rows)
+    retry_rows, more = _capped(retry_rows, "re-landed sites (see the retries column of manifest.csv)")
+    return (f"<h2 id='retries'>Retries ({n_retry} die/site pairs landed more than once)</h2>"
+            + _table(("die", "site", "landings", "verdicts in order", "re-land reasons"), retry_rows) + more
             + "<h3>Skipped and given up</h3>" + _table(("time", "die", "site", "action", "reason"), other)
             + "<h2 id='notes'>Notes</h2>" + _table(("time", "die", "site", "note"), notes)
             + "<h2 id='events'>Drift checks, instrument errors, recoveries</h2>"

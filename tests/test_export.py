@@ -16,6 +16,7 @@ import hashlib
 import io
 import json
 import re
+from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
 import numpy as np
@@ -137,7 +138,8 @@ class SessionWriter:
     def event(self, type_: str, payload: dict) -> int:
         self.seq += 1
         self.sec += 7
-        ts = f"2026-12-01T22:{41 + self.sec // 60:02d}:{self.sec % 60:02d}.123Z"
+        t = datetime(2026, 12, 1, 22, 41, 0, 123000, tzinfo=timezone.utc) + timedelta(seconds=self.sec)
+        ts = t.strftime("%Y-%m-%dT%H:%M:%S.") + f"{t.microsecond // 1000:03d}Z"
         obj = {"seq": self.seq, "ts": ts, "type": type_, "payload": payload, "prev": self.prev}
         line = json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=False).encode("utf-8")
         self.fh.write(line + b"\n")
