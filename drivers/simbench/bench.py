@@ -17,7 +17,7 @@ import skrf
 
 from drivers.simbench.chip import CHIP_FILE, load_chip
 from drivers.simbench.errorbox import drifted
-from drivers.simbench.faults import Fault, FaultBook, parse_fault
+from drivers.simbench.faults import Fault, FaultBook, FaultSpecError, parse_fault
 from drivers.simbench.impairments import SimClock, drift_factors
 from drivers.simbench.prober_instrument import SimProber
 from drivers.simbench.server import InstrumentServer
@@ -53,7 +53,7 @@ class SimBench:
         self.chip = load_chip(chip_file)
         self.seed = seed
         self._names = {s.name for s in self.chip.sites}
-        parsed = [f if isinstance(f, Fault) else parse_fault(f, self._names) for f in faults]
+        parsed = [self._checked(f if isinstance(f, Fault) else parse_fault(f, self._names)) for f in faults]
         if fault_rate > 0:
             # by chance, one die of the wafer is dead
             dies = self.chip.dies()
@@ -103,9 +103,15 @@ class SimBench:
         self.stop()
 
     # ---- control and inspection ------------------------------------------------------------
+    def _checked(self, fault: Fault) -> Fault:
+        if fault.die is not None and not self.chip.on_map(fault.die):
+            raise FaultSpecError(f"fault {fault}: die {fault.die[0]},{fault.die[1]} is not on the "
+                                 f"{self.chip.cols}x{self.chip.rows} wafer map of {self.chip.wafer_id}")
+        return fault
+
     def inject(self, fault: Fault | str) -> Fault:
         """Queue a fault (a Fault or a spec string) for the next matching landing(s)."""
-        f = fault if isinstance(fault, Fault) else parse_fault(fault, self._names)
+        f = self._checked(fault if isinstance(fault, Fault) else parse_fault(fault, self._names))
         self.faults.add(f)
         return f
 

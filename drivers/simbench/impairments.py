@@ -39,18 +39,19 @@ def add_noise(s: np.ndarray, rng: np.random.Generator, ifbw_hz: float, power_dbm
 
 
 def drift_factors(f: np.ndarray, hours: float, seed: int) -> tuple[np.ndarray, np.ndarray]:
-    """Multipliers of port-1 and port-2 transmission tracking after ``hours``.
+    """Multipliers d1, d2 of each port's tracking e10 e01 after ``hours``.
 
-    The two ports share the total in seeded proportions so that |S21| of a thru
-    moves DRIFT_DB_PER_H and its phase DRIFT_DEG_PER_H per hour at 110 GHz,
-    linear in frequency and in time (slow thermal drift of cables and probes).
+    A thru's S21 moves by sqrt(d1 d2): DRIFT_DB_PER_H and DRIFT_DEG_PER_H per hour
+    at 110 GHz, linear in frequency and in time (slow thermal drift of cables and
+    probes); the two ports share it in seeded proportions.
     """
     share = np.random.default_rng([seed, 202]).uniform(0.3, 0.7)
     scale = np.asarray(f, float) / 110e9 * hours
     db = -DRIFT_DB_PER_H * scale
     ph = -np.deg2rad(DRIFT_DEG_PER_H) * scale
-    d1 = 10 ** (share * db / 20) * np.exp(1j * share * ph)
-    d2 = 10 ** ((1 - share) * db / 20) * np.exp(1j * (1 - share) * ph)
+    a, b = 2 * share, 2 * (1 - share)
+    d1 = 10 ** (a * db / 20) * np.exp(1j * a * ph)
+    d2 = 10 ** (b * db / 20) * np.exp(1j * b * ph)
     return d1, d2
 
 
