@@ -224,6 +224,7 @@ class Engine:
         self._subscribers: list[Subscriber] = []
         self._lock = threading.Lock()
         self._configured = False
+        self._reopen_vna = False
         power = float(plan.settings.power_dbm)
         if power > float(plan.power_limit_dbm):
             raise EngineError(
@@ -699,6 +700,10 @@ class Engine:
         if self._configured:
             return
         try:
+            reopen = getattr(self.bench.vna, "reopen", None)
+            if self._reopen_vna and callable(reopen):
+                reopen()  # a stale reply left in the link after a failure would shift every answer
+            self._reopen_vna = False
             self.bench.vna.configure(self.plan.settings, float(self.plan.power_limit_dbm))
         except Exception as exc:
             self._instrument_failed("vna", exc)
@@ -729,6 +734,7 @@ class Engine:
 
     def _instrument_failed(self, where: str, exc: BaseException):
         self._configured = False  # the instrument may have been reset or reconnected
+        self._reopen_vna = where == "vna"
         self._safe_separate()
         ev = self._append("instrument-error", {"where": where, "error": type(exc).__name__,
                                                "message": str(exc), "touchdowns": dict(self._touchdowns)})
@@ -1089,8 +1095,17 @@ def _pairs(required) -> list[tuple[str, str]]:
 
 
 def _touchstone_bytes(ntwk: skrf.Network, header: dict) -> bytes:
-    from probelog.touchstone_out import network_to_touchstone
+    """Touchstone v1.1 bytes with the header as '!' comment lines (self-describing)."""
+    try:
+        from probelog.touchstone_out import network_to_touchstone
+    except ModuleNotFoundError:  # the shared writer is not in this build: skrf's, same header
+        import tempfile
 
+        with tempfile.TemporaryDirectory() as tmp:
+            ntwk.write_touchstone("sweep", dir=tmp, form="ri")
+            body = (Path(tmp) / f"sweep.s{ntwk.nports}p").read_bytes()
+        head = "".join(f"! {k}: {v}\n" for k, v in header.items())
+        return f"! probelog sweep\n{head}".encode() + body
     return network_to_touchstone(ntwk, header)
 
 

@@ -1,0 +1,99 @@
+"""``probelog run``: walk a plan on a bench, in the UI or headless; or resume."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+HELP = "run a probing session from a plan (or --resume one), in the UI or --headless"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    from tui.benches import add_bench_arguments
+
+    parser.add_argument("plan", nargs="?", metavar="PLAN", help="plan file (.toml) or the word demo")
+    parser.add_argument("--resume", metavar="SESSION", help="session folder to continue")
+    parser.add_argument("--dir", metavar="DIR", default="sessions", help="where session folders go (default sessions/)")
+    parser.add_argument("--operator", default="", help="operator name for the journal")
+    parser.add_argument("--retries", type=int, default=2, metavar="N",
+                        help="headless: re-landings of a failing site before giving up (default 2)")
+    parser.add_argument("--headless", action="store_true", help="no UI: accept passes, re-land failures, go on")
+    add_bench_arguments(parser)
+
+
+def run(args: argparse.Namespace) -> int:
+    from tui.cli import UsageError
+
+    if bool(args.plan) == bool(args.resume):
+        raise UsageError("give a PLAN (file or 'demo') or --resume SESSION, not both")
+    if args.retries < 0:
+        raise UsageError(f"--retries must be 0 or more, got {args.retries}")
+    from probelog.plan import PlanError, load_plan
+    from probelog.session import Engine, EngineError
+
+    if args.resume:
+        from probelog.journal import JournalError
+
+        plan = None
+        probe_ids = _probe_ids_of(args.resume)
+    else:
+        try:
+            plan = load_plan(args.plan)
+        except PlanError as exc:
+            raise UsageError(str(exc)) from None
+        probe_ids = plan.probes.ids
+
+    def engine_factory(*_request, confirm=None):
+        bench = build(confirm)
+        try:
+            if args.resume:
+                return Engine.resume(args.resume, bench)
+            return Engine.new(plan, bench, args.dir, operator=args.operator)
+        except BaseException:
+            bench.close()
+            raise
+
+    def build(confirm=None):
+        from tui.benches import build_bench
+
+        return build_bench(args, probe_ids, confirm)
+
+    if not args.headless:
+        try:
+            from tui.app import run_app
+        except ModuleNotFoundError:
+            print("probelog run: the UI is not available in this build; use --headless", file=sys.stderr)
+            return 2
+        return run_app(engine_factory)
+
+    from probelog.headless import run_headless
+
+    try:
+        engine = engine_factory()
+    except (EngineError, JournalError if args.resume else EngineError) as exc:
+        raise UsageError(str(exc)) from None
+    try:
+        summary = run_headless(engine, retries=args.retries, out=sys.stdout)
+    except EngineError as exc:  # e.g. a cal standard that cannot be measured
+        print(f"probelog run: stopped: {exc}; resume with --resume {engine.session_dir}", file=sys.stderr)
+        engine.close(False)
+        return 1
+    finally:
+        engine.bench.close()
+    return summary.exit_code
+
+
+def _probe_ids_of(session: str) -> tuple[str, ...]:
+    """Probe ids from the session-opened line, read without opening for writing."""
+    import json
+    from pathlib import Path
+
+    from tui.cli import UsageError
+
+    path = Path(session) / "journal.jsonl"
+    try:
+        with path.open("rb") as fh:
+            first = json.loads(fh.readline())
+        return tuple(first["payload"]["probes"])
+    except (OSError, ValueError, KeyError) as exc:
+        raise UsageError(f"{path}: cannot read the session's first event ({exc})") from None
