@@ -1,0 +1,618 @@
+"""The session journal: append-only, hash-chained, crash-safe; and its data store.
+
+A session is a folder ``<root>/<session_id>/`` holding ``journal.jsonl`` (one
+event a line, canonical JSON, see docs/journal-events.md) and ``data/`` (the
+Touchstone files and cal sets the events reference by path and SHA-256).
+
+Durability (POSIX): a data file is written under a temporary name in its own
+folder, fsync'ed, renamed into place and the folder fsync'ed; an event line is
+written with one ``write`` on an O_APPEND descriptor and fsync'ed. An event is
+acknowledged (``append`` returns) only after its fsync returned, so a crash
+loses at most the event being written: its torn line is moved aside on reopen.
+
+Only the standard library is used here so that a crashed process's session can
+be reopened quickly, and so the journal stays importable without numpy.
+"""
+
+from __future__ import annotations
+
+import errno
+import fcntl
+import hashlib
+import json
+import math
+import os
+import re
+import threading
+from dataclasses import dataclass, field, is_dataclass
+from datetime import datetime, timezone
+from enum import Enum
+from pathlib import Path, PurePosixPath
+from typing import Any, Iterator
+
+JOURNAL_NAME = "journal.jsonl"
+DATA_DIR = "data"
+LOCK_NAME = ".lock"
+TORN_PREFIX = "journal.torn-"
+ZERO_HASH = "0" * 64
+_TEMP_RE = re.compile(r"^\..+\.tmp-\d+-\d+$")
+_HEX64 = re.compile(r"^[0-9a-f]{64}$")
+_EVENT_KEYS = frozenset(("seq", "ts", "type", "payload", "prev"))
+
+
+class JournalError(Exception):
+    """The journal cannot do what was asked; the message says why and what to do."""
+
+
+class NotASessionError(JournalError):
+    """The folder holds no journal.jsonl."""
+
+
+@dataclass(frozen=True)
+class FileRef:
+    """A data file: ``path`` relative to the session folder (POSIX), SHA-256 hex."""
+
+    path: str
+    sha256: str
+
+    def to_json(self) -> dict[str, str]:
+        return {"path": self.path, "sha256": self.sha256}
+
+
+@dataclass(frozen=True)
+class Event:
+    """One journal line. ``hash`` is SHA-256 of the line's bytes (no newline);
+    ``prev`` the hash of the line before (64 zeros for seq 1)."""
+
+    seq: int
+    ts: str
+    type: str
+    payload: dict[str, Any]
+    prev: str
+    hash: str
+
+
+@dataclass(frozen=True)
+class Problem:
+    """Something ``verify`` found wrong. ``line`` is the 1-based journal line
+    (None for a file no line names); ``file`` the journal or the data file."""
+
+    line: int | None
+    file: str
+    expected: str
+    found: str
+    message: str
+
+
+@dataclass(frozen=True)
+class VerifyReport:
+    ok: bool
+    events: int
+    problems: list[Problem] = field(default_factory=list)
+    last_seq: int = 0
+    last_hash: str = ZERO_HASH
+
+
+# --------------------------------------------------------------------------- encoding
+
+
+def _plain(obj: Any) -> Any:
+    """Payload -> JSON types: NaN/inf become None, numpy scalars/arrays become
+    Python numbers/lists, paths and enums their text, FileRefs their object."""
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    if obj is None or isinstance(obj, (str, bool, int)):
+        return obj
+    if isinstance(obj, dict):
+        return {str(k): _plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_plain(v) for v in obj]
+    return _plain(_default(obj))
+
+
+def _default(obj: Any) -> Any:
+    if hasattr(obj, "to_json"):
+        return obj.to_json()
+    if isinstance(obj, Enum):
+        return obj.value
+    if isinstance(obj, Path):
+        return obj.as_posix()
+    if hasattr(obj, "tolist"):  # numpy scalars and arrays, without importing numpy
+        value = obj.tolist()
+        if isinstance(value, complex):
+            raise TypeError("complex numbers have no JSON form; store [re, im] or a data file")
+        return value
+    if is_dataclass(obj) and not isinstance(obj, type):
+        return {k: getattr(obj, k) for k in obj.__dataclass_fields__}
+    raise TypeError(f"{type(obj).__name__} cannot be written as JSON")
+
+
+# One encoder for all lines: json.dumps with options builds a new one per call.
+_ENCODER = json.JSONEncoder(sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                            allow_nan=False, default=_default)
+
+
+def canonical_json(obj: Any) -> bytes:
+    """Sorted keys, compact separators, UTF-8, no NaN (NaN/inf become null)."""
+    try:
+        text = _ENCODER.encode(obj)  # fast path: most payloads are plain and finite
+    except ValueError:
+        text = _ENCODER.encode(_plain(obj))
+    return text.encode("utf-8")
+
+
+def _utc_now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="milliseconds").replace("+00:00", "Z")
+
+
+def new_session_id(wafer_id: str, when: datetime | None = None) -> str:
+    """``YYYYMMDD-HHMMSS-<wafer>`` in UTC, e.g. ``20261201-224501-QF2611-W07``."""
+    when = (when or datetime.now(timezone.utc)).astimezone(timezone.utc)
+    wafer = re.sub(r"[^A-Za-z0-9._-]+", "_", wafer_id).strip("._") or "wafer"
+    return f"{when:%Y%m%d-%H%M%S}-{wafer}"
+
+
+def _os_reason(exc: OSError) -> str:
+    if exc.errno in (errno.ENOSPC, getattr(errno, "EDQUOT", errno.ENOSPC)):
+        return "the disk is full (no space left)"
+    if exc.errno in (errno.EROFS, errno.EACCES, errno.EPERM):
+        return "the folder is read-only or not writable"
+    return exc.strerror or str(exc)
+
+
+def _write_all(fd: int, data: bytes) -> None:
+    view = memoryview(data)
+    while view:
+        n = os.write(fd, view)
+        view = view[n:]
+
+
+def _fsync_dir(path: Path) -> None:
+    fd = os.open(path, os.O_RDONLY | os.O_DIRECTORY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+# --------------------------------------------------------------------------- reading
+
+
+def _parse(raw: bytes) -> tuple[dict | None, str]:
+    """One line -> (record, "") or (None, what is wrong)."""
+    try:
+        rec = json.loads(raw)
+    except (ValueError, RecursionError) as exc:  # UnicodeDecodeError is a ValueError
+        return None, f"not valid JSON ({exc.__class__.__name__})"
+    if not isinstance(rec, dict) or set(rec) != _EVENT_KEYS:
+        return None, "not an event object with seq, ts, type, payload, prev"
+    if not (isinstance(rec["seq"], int) and not isinstance(rec["seq"], bool) and isinstance(rec["ts"], str)
+            and isinstance(rec["type"], str) and isinstance(rec["payload"], dict)
+            and isinstance(rec["prev"], str)):
+        return None, "an event field has the wrong type"
+    return rec, ""
+
+
+def _refs(obj: Any) -> Iterator[tuple[str, str]]:
+    """Every {"path", "sha256"} object inside a payload."""
+    stack = [obj]
+    while stack:
+        o = stack.pop()
+        if isinstance(o, dict):
+            p, h = o.get("path"), o.get("sha256")
+            if isinstance(p, str) and isinstance(h, str):
+                yield p, h
+            stack.extend(o.values())
+        elif isinstance(o, list):
+            stack.extend(o)
+
+
+def _safe_rel(path: str) -> PurePosixPath | None:
+    p = PurePosixPath(path)
+    if p.is_absolute() or not p.parts or any(part in ("", ".", "..") for part in p.parts) or "\x00" in path:
+        return None
+    return p
+
+
+def _data_files(root: Path) -> tuple[list[str], list[str]]:
+    """(data files, leftover temp files) under data/, as POSIX paths relative to root."""
+    files, temps = [], []
+    base = root / DATA_DIR
+    for dirpath, dirnames, filenames in os.walk(base):
+        dirnames.sort()
+        rel_dir = Path(dirpath).relative_to(root).as_posix()
+        for name in sorted(filenames):
+            (temps if _TEMP_RE.match(name) else files).append(f"{rel_dir}/{name}")
+    return files, temps
+
+
+def _sha256_file(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        for block in iter(lambda: f.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+# --------------------------------------------------------------------------- writer
+
+
+class Journal:
+    """The one writer of a session folder (an exclusive flock on ``.lock``).
+
+    Use :meth:`create` or :meth:`open`; close it (or use ``with``).
+    """
+
+    def __init__(self, root: Path, lock_fd: int) -> None:
+        self.root = root
+        self.session_id = root.name
+        self.path = root / JOURNAL_NAME
+        self._lock_fd = lock_fd
+        self._fd: int | None = None
+        self._events: list[Event] = []
+        self._size = 0
+        self._broken: str | None = None
+        self._mutex = threading.Lock()
+        self._temp_n = 0
+        self.recovered: Event | None = None
+
+    # ------------------------------------------------------------ lifecycle
+
+    @classmethod
+    def create(cls, root: str | Path, session_id: str) -> "Journal":
+        """Create ``root/session_id/`` with an empty journal and ``data/``."""
+        if not re.match(r"^[A-Za-z0-9][A-Za-z0-9._-]*$", session_id):
+            raise JournalError(f"session id {session_id!r}: expected letters, digits, '.', '_' or '-'")
+        root = Path(root)
+        folder = root / session_id
+        try:
+            root.mkdir(parents=True, exist_ok=True)
+            folder.mkdir()
+        except FileExistsError:
+            raise JournalError(f"{folder}: a session folder of that name exists already") from None
+        except OSError as exc:
+            raise JournalError(f"{folder}: cannot create the session folder: {_os_reason(exc)}") from None
+        journal = cls(folder, cls._lock(folder))
+        try:
+            (folder / DATA_DIR).mkdir()
+            fd = os.open(journal.path, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_APPEND | os.O_CLOEXEC, 0o644)
+            os.fsync(fd)
+            journal._fd = fd
+            _fsync_dir(folder)
+            _fsync_dir(root)
+        except OSError as exc:
+            journal.close()
+            raise JournalError(f"{folder}: cannot create the journal: {_os_reason(exc)}") from None
+        return journal
+
+    @classmethod
+    def open(cls, folder: str | Path) -> "Journal":
+        """Reopen a session for writing, recovering from a crash if needed."""
+        folder = Path(folder)
+        if not (folder / JOURNAL_NAME).is_file():
+            raise NotASessionError(f"{folder}: not a session folder (no {JOURNAL_NAME})")
+        journal = cls(folder, cls._lock(folder))
+        try:
+            journal._load_and_recover()
+        except BaseException:
+            journal.close()
+            raise
+        return journal
+
+    @staticmethod
+    def _lock(folder: Path) -> int:
+        try:
+            fd = os.open(folder / LOCK_NAME, os.O_RDWR | os.O_CREAT | os.O_CLOEXEC, 0o644)
+        except OSError as exc:
+            raise JournalError(f"{folder}: cannot open the session for writing: {_os_reason(exc)}") from None
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            try:
+                holder = os.pread(fd, 32, 0).decode("ascii", "replace").strip() or "?"
+            finally:
+                os.close(fd)
+            raise JournalError(f"{folder}: the session is open for writing in another process "
+                               f"(pid {holder}); close it there first") from None
+        try:  # who holds it, for the message above; not needed for correctness
+            os.ftruncate(fd, 0)
+            os.pwrite(fd, f"{os.getpid()}\n".encode(), 0)
+        except OSError:
+            pass
+        return fd
+
+    def close(self) -> None:
+        with self._mutex:
+            for fd in (self._fd, self._lock_fd):
+                if fd is not None:
+                    try:
+                        os.close(fd)
+                    except OSError:
+                        pass
+            self._fd = self._lock_fd = None  # type: ignore[assignment]
+            self._broken = self._broken or "the journal is closed"
+
+    def __enter__(self) -> "Journal":
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # ------------------------------------------------------------ reading
+
+    def events(self) -> list[Event]:
+        return list(self._events)
+
+    @property
+    def last(self) -> Event | None:
+        return self._events[-1] if self._events else None
+
+    def _load_and_recover(self) -> None:
+        try:
+            data = self.path.read_bytes()
+        except OSError as exc:
+            raise JournalError(f"{self.path}: cannot read: {_os_reason(exc)}") from None
+        body_end = data.rfind(b"\n") + 1
+        lines = data[:body_end].split(b"\n")[:-1]
+        prev, offset = ZERO_HASH, 0
+        torn_from = body_end if body_end < len(data) else None
+        for i, raw in enumerate(lines, start=1):
+            rec, why = _parse(raw)
+            if rec is None and i == len(lines):
+                torn_from = offset  # a complete but unreadable last line: torn too
+                break
+            if rec is None or rec["seq"] != i or rec["prev"] != prev:
+                if rec is not None:
+                    why = (f"seq {rec['seq']}, expected {i}" if rec["seq"] != i
+                           else "prev does not match the line before (edited, removed or reordered lines)")
+                raise JournalError(f"{self.path}, line {i}: {why}; the journal is damaged "
+                                   f"and cannot be appended to: run `probelog verify {self.root}`")
+            h = hashlib.sha256(raw).hexdigest()
+            self._events.append(Event(rec["seq"], rec["ts"], rec["type"], rec["payload"], prev, h))
+            prev = h
+            offset += len(raw) + 1
+        self._size = offset
+        try:
+            self._fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | os.O_CLOEXEC)
+        except OSError as exc:
+            raise JournalError(f"{self.path}: cannot open for appending: {_os_reason(exc)}") from None
+        self._recover(data, torn_from)
+
+    def _recover(self, data: bytes, torn_from: int | None) -> None:
+        torn_name = None
+        try:
+            if torn_from is not None:
+                torn_name = self._move_torn_tail(data[torn_from:])
+                os.ftruncate(self._fd, torn_from)
+                os.fsync(self._fd)
+            referenced = {p for ev in self._events for p, _ in _refs(ev.payload)}
+            files, temps = _data_files(self.root)
+        except OSError as exc:
+            raise JournalError(f"{self.root}: cannot recover the session: {_os_reason(exc)}") from None
+        orphans = [p for p in files if p not in referenced]
+        # Temporary files stay (nothing is deleted); report each one only once.
+        known = {t for ev in self._events if ev.type == "recovered"
+                 for t in ev.payload.get("leftover_temp", []) if isinstance(t, str)}
+        temps = [t for t in temps if t not in known]
+        if torn_name is None and not orphans and not temps:
+            return
+        adopted = [FileRef(p, _sha256_file(self.root / p)).to_json() for p in orphans]
+        parts = []
+        if torn_name:
+            parts.append(f"moved a torn last line ({len(data) - torn_from} bytes) to {torn_name}")
+        if adopted:
+            parts.append(f"adopted {len(adopted)} data file(s) no event named")
+        if temps:
+            parts.append(f"left {len(temps)} unfinished temporary file(s) in place")
+        self.recovered = self.append("recovered", {
+            "torn_line": torn_name,
+            "torn_bytes": 0 if torn_from is None else len(data) - torn_from,
+            "adopted": adopted,
+            "leftover_temp": temps,
+            "message": "; ".join(parts) + "; nothing was deleted",
+        })
+
+    def _move_torn_tail(self, tail: bytes) -> str:
+        existing = [int(m.group(1)) for p in self.root.iterdir()
+                    if (m := re.fullmatch(re.escape(TORN_PREFIX) + r"(\d+)", p.name))]
+        name = f"{TORN_PREFIX}{max(existing, default=0) + 1}"
+        self._atomic_write(self.root / name, tail)
+        return name
+
+    # ------------------------------------------------------------ writing
+
+    def _usable(self) -> int:
+        if self._broken is not None or self._fd is None:
+            raise JournalError(f"{self.path}: {self._broken or 'the journal is closed'}")
+        return self._fd
+
+    def append(self, type: str, payload: dict[str, Any]) -> Event:
+        """Write one event and fsync it; the returned Event is acknowledged."""
+        if not isinstance(type, str) or not type:
+            raise JournalError("an event needs a non-empty type")
+        if not isinstance(payload, dict):
+            raise JournalError(f"the payload of a {type!r} event must be a dict, got {payload.__class__.__name__}")
+        with self._mutex:
+            fd = self._usable()
+            seq = len(self._events) + 1
+            prev = self._events[-1].hash if self._events else ZERO_HASH
+            record = {"seq": seq, "ts": _utc_now(), "type": type, "payload": payload, "prev": prev}
+            try:
+                line = canonical_json(record)
+            except (TypeError, ValueError, RecursionError) as exc:
+                raise JournalError(f"the payload of a {type!r} event cannot be written as JSON: {exc}") from None
+            try:
+                _write_all(fd, line + b"\n")
+            except OSError as exc:
+                self._undo(exc, "write")
+            try:
+                os.fsync(fd)
+            except OSError as exc:
+                # After a failed fsync the kernel's view of the file is unknown
+                # (the error may be reported once only): stop writing.
+                self._undo(exc, "fsync", stop=True)
+            self._size += len(line) + 1
+            # Keep what a reader of the file gets back (NaN as None, numpy as
+            # lists), decoupled from the caller's dict.
+            stored = json.loads(line)["payload"]
+            event = Event(seq, record["ts"], type, stored, prev, hashlib.sha256(line).hexdigest())
+            self._events.append(event)
+            return event
+
+    def _undo(self, exc: OSError, step: str, stop: bool = False) -> None:
+        """Cut the journal back to its last acknowledged line, then raise."""
+        try:
+            os.ftruncate(self._fd, self._size)  # type: ignore[arg-type]
+            os.fsync(self._fd)  # type: ignore[arg-type]
+        except OSError:
+            stop = True  # the torn line stays; reopening moves it aside
+        where = f"{self.path}: event {len(self._events) + 1} was not written ({step} failed: {_os_reason(exc)})"
+        if stop:
+            self._broken = "stopped after a failed write; reopen the session to continue"
+            raise JournalError(f"{where}; the journal is intact up to event {len(self._events)}; "
+                               "reopen the session once the disk is fixed") from None
+        raise JournalError(f"{where}; the journal is intact up to event {len(self._events)}; "
+                           "free space or fix the folder and retry") from None
+
+    def write_file(self, relpath: str, data: bytes) -> FileRef:
+        """Store ``data`` at ``relpath`` (under ``data/``) atomically and durably.
+
+        Never overwrites: data files are immutable once written.
+        """
+        rel = _safe_rel(relpath)
+        if rel is None or rel.parts[0] != DATA_DIR or len(rel.parts) < 2 or any(p.startswith(".") for p in rel.parts):
+            raise JournalError(f"{relpath!r}: expected a relative path under {DATA_DIR}/ without '..' or hidden parts")
+        with self._mutex:
+            self._usable()
+        target = self.root / rel
+        if os.path.lexists(target):
+            raise JournalError(f"{target}: exists already; data files are never overwritten")
+        try:
+            self._make_dirs(target.parent)
+            self._atomic_write(target, data)
+        except OSError as exc:
+            raise JournalError(f"{target}: not written: {_os_reason(exc)}") from None
+        return FileRef(rel.as_posix(), hashlib.sha256(data).hexdigest())
+
+    def _make_dirs(self, folder: Path) -> None:
+        missing = []
+        p = folder
+        while not p.exists():
+            missing.append(p)
+            p = p.parent
+        for d in reversed(missing):
+            d.mkdir()
+            _fsync_dir(d.parent)  # the new folder's name is durable too
+
+    def _atomic_write(self, target: Path, data: bytes) -> None:
+        self._temp_n += 1
+        temp = target.with_name(f".{target.name}.tmp-{os.getpid()}-{self._temp_n}")
+        fd = os.open(temp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_CLOEXEC, 0o644)
+        try:
+            try:
+                _write_all(fd, data)
+                os.fsync(fd)
+            finally:
+                os.close(fd)
+            os.replace(temp, target)
+        except BaseException:
+            try:  # our own unfinished temporary file, never a data file
+                os.unlink(temp)
+            except OSError:
+                pass
+            raise
+        _fsync_dir(target.parent)
+
+
+# --------------------------------------------------------------------------- verify
+
+
+def verify(folder: str | Path, anchor: tuple[int, str] | None = None) -> VerifyReport:
+    """Re-walk the hash chain and every file hash of a session, read-only.
+
+    ``anchor`` (seq, sha256 of that line) is a hash kept off the machine: a chain
+    alone cannot tell a rewritten or cut-off end, the anchor can.
+    Raises NotASessionError if ``folder`` holds no journal.
+    """
+    root = Path(folder)
+    path = root / JOURNAL_NAME
+    if not path.is_file():
+        raise NotASessionError(f"{root}: not a session folder (no {JOURNAL_NAME})")
+    try:
+        data = path.read_bytes()
+    except OSError as exc:
+        raise JournalError(f"{path}: cannot read: {_os_reason(exc)}") from None
+    problems: list[Problem] = []
+    body_end = data.rfind(b"\n") + 1
+    lines = data[:body_end].split(b"\n")[:-1]
+    prev, last_seq = ZERO_HASH, 0
+    refs: list[tuple[int, str, str]] = []
+    hashes: dict[int, str] = {}
+    for i, raw in enumerate(lines, start=1):
+        h = hashlib.sha256(raw).hexdigest()
+        hashes[i] = h
+        rec, why = _parse(raw)
+        if rec is None:
+            problems.append(Problem(i, JOURNAL_NAME, "an event (canonical JSON)", _snippet(raw), why))
+        else:
+            if rec["seq"] != last_seq + 1:
+                problems.append(Problem(i, JOURNAL_NAME, f"seq {last_seq + 1}", f"seq {rec['seq']}",
+                                        "events out of order or missing"))
+            if rec["prev"] != prev:
+                problems.append(Problem(i, JOURNAL_NAME, f"prev {prev}", f"prev {rec['prev']}",
+                                        f"line {i - 1} was edited, or lines were removed or reordered"
+                                        if i > 1 else "the first event must have a prev of 64 zeros"))
+            last_seq = rec["seq"]
+            refs.extend((i, p, s) for p, s in _refs(rec["payload"]))
+        prev = h
+    if body_end < len(data):
+        problems.append(Problem(len(lines) + 1, JOURNAL_NAME, "a line ending in a newline",
+                                f"{len(data) - body_end} bytes without one",
+                                "torn last line (a crash while writing); opening the session moves it aside"))
+    if anchor is not None:
+        seq, want = anchor
+        got = hashes.get(seq)
+        if got != want:
+            problems.append(Problem(seq, JOURNAL_NAME, f"sha256 {want}", f"sha256 {got or 'no such line'}",
+                                    "the anchored line differs from the hash kept off the machine"))
+    problems.extend(_check_files(root, refs))
+    return VerifyReport(ok=not problems, events=len(lines), problems=problems,
+                        last_seq=last_seq, last_hash=prev)
+
+
+def _snippet(raw: bytes) -> str:
+    text = raw[:60].decode("utf-8", "replace")
+    return repr(text + ("..." if len(raw) > 60 else ""))
+
+
+def _check_files(root: Path, refs: list[tuple[int, str, str]]) -> list[Problem]:
+    problems: list[Problem] = []
+    digests: dict[str, str | None] = {}
+    for line, rel, want in refs:
+        safe = _safe_rel(rel)
+        if safe is None:
+            problems.append(Problem(line, rel, "a path inside the session folder", repr(rel), "unsafe file path"))
+            continue
+        key = safe.as_posix()
+        if key not in digests:
+            try:
+                digests[key] = _sha256_file(root / safe)
+            except FileNotFoundError:
+                digests[key] = None
+            except OSError as exc:
+                digests[key] = f"unreadable ({_os_reason(exc)})"
+        got = digests[key]
+        if got is None:
+            problems.append(Problem(line, key, f"sha256 {want}", "missing", "data file named by the event is missing"))
+        elif got != want:
+            problems.append(Problem(line, key, f"sha256 {want}", f"sha256 {got}" if _HEX64.match(got) else got,
+                                    "data file differs from what the event recorded"))
+    try:
+        files, _ = _data_files(root)
+    except OSError:
+        files = []
+    for rel in files:
+        if rel not in digests:
+            problems.append(Problem(None, rel, "a file named by an event", "no event names it",
+                                    "unreferenced data file (a crash before its event); opening the session adopts it"))
+    return problems
