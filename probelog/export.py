@@ -72,9 +72,10 @@ def _referenced_files(index: SessionIndex) -> list[tuple[str, str, str]]:
     events = index.landings + index.cal_events + index.drifts
     for ev in events:
         for key, val in ev["payload"].items():
-            if isinstance(val, dict) and "path" in val and "sha256" in val:
-                refs.append((val["path"], val["sha256"], f"seq {ev['seq']} ({ev['type']}) {key}"))
-    return refs
+            for ref in val if isinstance(val, list) else [val]:
+                if isinstance(ref, dict) and "path" in ref and "sha256" in ref:
+                    refs.append((ref["path"], ref["sha256"], f"seq {ev['seq']} ({ev['type']}) {key}"))
+    return list(dict.fromkeys(refs))
 
 
 def check_files(index: SessionIndex, hashes: dict[str, str]) -> list[str]:

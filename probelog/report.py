@@ -132,7 +132,7 @@ def _header(inp: ReportInputs) -> str:
                   f"IF bandwidth {s.get('ifbw_hz')} Hz, {s.get('power_dbm')} dBm"),
         ("probelog", o.get("probelog_version")),
         ("Closed", "not closed (session ended without session-closed)" if closed is None
-         else f"{'completed' if closed.get('completed') else 'stopped early'}: {closed.get('summary', '')}"),
+         else f"{'completed' if closed.get('completed') else 'stopped early'}: {_summary_text(closed.get('summary'))}"),
     ]
     state = "intact" if chain.ok else "BROKEN"
     count = f"{chain.total} events" if chain.ok else f"intact through line {chain.events} of {chain.total}"
@@ -147,6 +147,12 @@ def _header(inp: ReportInputs) -> str:
         "<small>Copy this hash off the machine: with it, any later edit of the journal shows.</small></div>"
         + torn
     )
+
+
+def _summary_text(summary: Any) -> str:
+    if isinstance(summary, dict):
+        return ", ".join(f"{k}: {_summary_text(v)}" for k, v in summary.items())
+    return "" if summary is None else str(summary)
 
 
 def _ghz(hz: Any) -> str:
@@ -239,7 +245,7 @@ def _wafer_map(inp: ReportInputs) -> str:
         norm, cmap = TwoSlopeNorm(0.0, finite.min(), finite.max()), "RdBu_r"
     im = ax.imshow(grid, cmap=cmap, norm=norm, extent=extent, interpolation="nearest")
     cb = fig.colorbar(im, ax=ax, shrink=0.85)
-    cb.set_label(metric + (" deviation" if deviation else ""), fontsize=8)
+    cb.set_label(metric + ((" deviation (%)" if meaning.endswith("(%)") else " deviation") if deviation else ""), fontsize=8)
     for (c, r), v in worst.items():
         val = grid[r - r0, c - c0]
         ax.add_patch(_die_frame(c, r, VERDICT_COLOURS.get(v, "#9e9e9e")))
