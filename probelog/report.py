@@ -281,8 +281,10 @@ def _overlays(inp: ReportInputs) -> str:
             by_site[r["site"]].append(ntwk)
             kinds[r["site"]] = r.get("kind", "")
     head = "<h2 id='overlays'>Sweeps per site, all dies overlaid</h2>"
+    if not inp.index.rows:
+        return head + "<p class='none'>No kept sweeps.</p>"
     if not by_site:
-        return head + "<p class='none'>No sweeps could be read.</p>"
+        return head + "<p class='none'>None of the kept sweeps could be read (see file integrity).</p>"
     sites = sorted(by_site)
     ncol = 4
     nrow = math.ceil(len(sites) / ncol)
@@ -353,7 +355,13 @@ def _calibration(inp: ReportInputs) -> str:
     return "".join(out)
 
 
+STUB_KINDS = {"open-stub", "short-stub"}
+
+
 def _smith(inp: ReportInputs) -> str:
+    """Verification stubs (plan kind open-stub / short-stub; every verification
+    structure when the plan does not say) on a Smith chart, with |Sii| in dB
+    beside it: a passive stub stays inside the chart and below 0 dB."""
     import skrf
 
     traces = []
@@ -361,6 +369,9 @@ def _smith(inp: ReportInputs) -> str:
         if ev["type"] != "cal-verification":
             continue
         p = ev["payload"]
+        kind = inp.index.sites.get(p.get("site"), {}).get("kind")
+        if kind is not None and kind not in STUB_KINDS:
+            continue
         ref = p.get("corrected") or p.get("raw")
         path = ref.get("path") if isinstance(ref, dict) else ref
         ntwk = inp.cal_networks.get(path)
@@ -368,18 +379,27 @@ def _smith(inp: ReportInputs) -> str:
             traces.append((f"{p.get('cal_id')} {p.get('site')} {_die(p)}", ntwk, p.get("verdict")))
     if not traces:
         return ""
-    fig = Figure(figsize=(6.5, 6.5))
-    ax = fig.add_subplot()
+    fig = Figure(figsize=(12, 5.6))
+    ax = fig.add_subplot(1, 2, 1)
+    mag = fig.add_subplot(1, 2, 2)
     skrf.plotting.smith(ax=ax, chart_type="z", draw_labels=True)
     for label, ntwk, verdict in traces:
-        s11 = ntwk.s[:, 0, 0]
-        ax.plot(s11.real, s11.imag, lw=1.3, label=f"{label}: S11 ({verdict})")
-        ax.plot(s11.real[:1], s11.imag[:1], "o", ms=4, color="black")
-        if ntwk.s.shape[1] > 1:
-            s22 = ntwk.s[:, 1, 1]
-            ax.plot(s22.real, s22.imag, lw=0.9, ls="--", label=f"{label}: S22")
+        for port, style in ((0, "-"), (1, "--")):
+            if ntwk.s.shape[1] <= port:
+                continue
+            g = ntwk.s[:, port, port]
+            name = f"{label} S{port + 1}{port + 1}" + (f" ({verdict})" if port == 0 else "")
+            line = ax.plot(g.real, g.imag, style, lw=1.1, label=name)[0]
+            ax.plot(g.real[:1], g.imag[:1], "o", ms=4, color=line.get_color())
+            mag.plot(ntwk.f / 1e9, 20 * np.log10(np.maximum(np.abs(g), 1e-12)), style, lw=1.1,
+                     color=line.get_color(), label=name)
     ax.legend(fontsize=7, loc="lower left")
-    ax.set_title("Corrected verification stubs; dot = first frequency. A lossless stub turns clockwise.", fontsize=8)
+    ax.set_title("Corrected; dot = first frequency; a passive stub turns clockwise inside the chart", fontsize=8)
+    mag.axhline(0.0, color="black", lw=0.8)
+    mag.set_xlabel("GHz")
+    mag.set_ylabel("|Sii| (dB)")
+    mag.grid(alpha=0.3)
+    mag.set_title("Above 0 dB is gain: the cal or the stub is wrong", fontsize=8)
     fig.tight_layout()
     return _png(fig, "verification stubs on the Smith chart")
 
