@@ -207,8 +207,9 @@ def export_bundle(session_dir: Path | str, out_dir: Path | str | None = None, pr
         networks, unread = load_networks(index, session_dir, task("reading sweeps", len(index.rows)))
         compute_missing_metrics(index, networks)
         if metric is not None and metric not in numeric_columns(index):
-            raise BundleError(f"--metric {metric}: not a numeric manifest column; "
-                              f"choose one of: {', '.join(numeric_columns(index))}")
+            names = numeric_columns(index)
+            shown = ", ".join(names[:20]) + (f" and {len(names) - 20} more" if len(names) > 20 else "")
+            raise BundleError(f"--metric {metric}: not a numeric manifest column; choose one of: {shown}")
         out.mkdir(parents=True, exist_ok=True)
         (out / JOURNAL_NAME).write_bytes(journal.path.read_bytes())
         hashes = _copy_tree(data_dir, out, task("copying data", n_files)) if data_dir.is_dir() else {}

@@ -457,6 +457,10 @@ def test_cli_exports_and_refuses_bad_input(session, tmp_path, capsys):
     assert len(err.splitlines()) == 1 and "not an empty folder" in err
     assert cli_main(["export", str(tmp_path), "--out", str(tmp_path / "x"), "--quiet"]) == 2
     assert "not a probelog session" in capsys.readouterr().err
+    assert cli_main(["export", str(tmp_path / "missing"), "--quiet"]) == 2
+    assert "no such folder" in capsys.readouterr().err
+    assert cli_main(["export", str(out / "README.md"), "--quiet"]) == 2
+    assert "not a folder" in capsys.readouterr().err
     assert cli_main(["export", str(session), "--out", str(tmp_path / "y"), "--quiet", "--metric", "nope"]) == 2
     err = capsys.readouterr().err
     assert "--metric nope" in err and "retries" in err

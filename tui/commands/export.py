@@ -22,8 +22,10 @@ def run(args: argparse.Namespace) -> int:
     from tui.cli import UsageError
 
     session = Path(args.session)
-    if not session.is_dir():
+    if not session.exists():
         raise UsageError(f"{session}: no such folder")
+    if not session.is_dir():
+        raise UsageError(f"{session}: not a folder (give the session folder that holds journal.jsonl)")
     from probelog.export import BundleError, export_bundle
     from probelog.manifest import SessionFormatError
 
