@@ -315,7 +315,9 @@ def _overlays(inp: ReportInputs) -> str:
             ax.set_xlabel("GHz", fontsize=7)
         if i == 0:
             ax.legend(fontsize=7, loc="lower left")
-    fig.tight_layout()
+    # fixed margins: tight_layout would draw the 40-odd panels one extra time
+    fig.subplots_adjust(left=0.05, right=0.99, bottom=0.5 / (2.6 * nrow), top=1 - 0.3 / (2.6 * nrow),
+                        wspace=0.22, hspace=0.45)
     return head + "<p>Blue |S11|, orange |S21| in dB (one-ports: S11 only). Corrected sweeps where a cal set was active, else raw.</p>" + _png(fig, "overlays per site")
 
 
