@@ -78,6 +78,7 @@ VNA_COMMANDS: dict[str, tuple[frozenset[str], bool]] = {
     "byte_order_big": (frozenset(), False),
     "fetch_sparams": (frozenset(), True),
     "fetch_frequencies": (frozenset(), False),
+    "fetch_switch_terms": (frozenset(), False),
 }
 
 PROBER_COMMANDS: dict[str, tuple[frozenset[str], bool]] = {

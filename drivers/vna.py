@@ -157,6 +157,27 @@ class ScpiVna:
         s = sparams_from_values(values, f.size, order)
         return skrf.Network(frequency=skrf.Frequency.from_f(f, unit="Hz"), s=s, z0=Z0_OHM, name="sweep")
 
+    def switch_terms(self) -> tuple[skrf.Network, skrf.Network] | None:
+        """Switch terms (gamma_f = a2/b2, gamma_r = a1/b1) of the last 2-port sweep as
+        two 1-port Networks, or None when the dialect has no ``fetch_switch_terms``.
+        Measure them on a thru (any reciprocal 2-port works); they belong to the
+        instrument, not the DUT."""
+        d = self.dialect
+        if not d.has("fetch_switch_terms") or self.settings is None:
+            return None
+        cmd = d.command("fetch_switch_terms")
+        values = self.link.query_values(cmd, d.byte_order)
+        self.link.check_errors(cmd)
+        f = self._frequencies()
+        if values.size != 4 * f.size:
+            raise ReplyError(f"{self.resource}: {cmd!r} returned {values.size} numbers, expected {4 * f.size} "
+                             f"(2 complex per point for {f.size} points)", resource=self.resource)
+        pairs = values.reshape(f.size, 2, 2)
+        g = pairs[..., 0] + 1j * pairs[..., 1]
+        freq = skrf.Frequency.from_f(f, unit="Hz")
+        return (skrf.Network(frequency=freq, s=g[:, 0].reshape(-1, 1, 1), name="gamma_f"),
+                skrf.Network(frequency=freq, s=g[:, 1].reshape(-1, 1, 1), name="gamma_r"))
+
     def close(self) -> None:
         self.link.close()
 

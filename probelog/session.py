@@ -575,17 +575,42 @@ class Engine:
         verdict = overall(checks)
         suffix = "" if step.landing == 1 else f"-L{step.landing}"
         files = self._write_pair(f"data/cal/{self._cal_id}/{step.site}{suffix}", raw, None, step)
+        switch = self._fetch_switch_terms(raw, site, step, f"data/cal/{self._cal_id}/{step.site}{suffix}")
         ev = self._append("cal-standard", {
             "cal_id": self._cal_id, "standard": step.standard, "die": _die_json(step.die),
             "site": step.site, "kind": site.kind, "landing": step.landing, "raw": files["raw"],
             "checks": [c.to_json() for c in checks], "verdict": verdict.value,
-            "touchdowns": dict(self._touchdowns),
+            "touchdowns": dict(self._touchdowns), "switch_terms": switch,
         })
         self._std_landings[(self._cal_id, step.site)] = step.landing
         self._std_measured[step.standard] = (raw, verdict, ev.seq, files["raw"]["path"])
         out = LandingOutcome(step, raw, None, checks, verdict, None, ev.seq, {"raw": files["raw"]["path"]})
         self._emit(StepMeasured(seq=ev.seq, outcome=out))
         return out
+
+    def _fetch_switch_terms(self, raw: skrf.Network, site, step: Step, stem: str) -> list[dict] | None:
+        """Fetch and store the VNA's switch terms right after a transmissive standard
+        (they belong to the instrument; any reciprocal 2-port reveals them, Marks,
+        50th ARFTG 1997). None when the VNA does not offer them."""
+        fetch = getattr(self.bench.vna, "switch_terms", None)
+        if raw.nports != 2 or site.kind not in ("thru", "line") or not callable(fetch):
+            return None
+        try:
+            terms = fetch()
+        except Exception as exc:
+            self._instrument_failed("vna", exc)
+        if terms is None:
+            return None
+        self._switch_terms = tuple(terms)
+        return [self._write_net(f"{stem}-switch-{d}", t, step, f"switch term {d}")
+                for d, t in zip(("gf", "gr"), terms)]
+
+    def _switch_networks(self) -> tuple | None:
+        terms = self._switch_terms
+        if terms and isinstance(terms[0], str):  # resumed: read the two small files back once
+            terms = tuple(skrf.Network(str(self.session_dir / p)) for p in terms)
+            self._switch_terms = terms
+        return terms
 
     def _measure_drift(self, step: Step) -> LandingOutcome:
         raw = self._land(step.die, step.site)
@@ -628,7 +653,7 @@ class Engine:
         cal_dir = f"data/cal/{self._cal_id}"
         names = [name for name, _ in self._required()]
         try:
-            calset = cal.solve(method, measured, kit, cal_id=self._cal_id)
+            calset = cal.solve(method, measured, kit, switch_terms=self._switch_networks(), cal_id=self._cal_id)
             ok, message = True, f"{method.upper()} solved from {len(measured)} standards"
         except Exception as exc:  # a singular or inconsistent set of standards
             calset, ok, message = None, False, f"{method.upper()} could not be solved: {exc}"
@@ -820,7 +845,8 @@ class Engine:
         wanted = self._cal().compare_with
         other_method = wanted if wanted in others else others[0]
         try:
-            other = cal.solve(other_method, measured, kit, cal_id=f"{self._cal_id}-{other_method}")
+            other = cal.solve(other_method, measured, kit, switch_terms=self._switch_networks(),
+                              cal_id=f"{self._cal_id}-{other_method}")
             result = cal.agreement(calset, other, list(measured.values()))
         except Exception:  # the second algorithm is a cross-check, not a requirement
             return None
@@ -932,6 +958,8 @@ class Engine:
         self._cal_count = max(self._cal_count, int(cal_id.removeprefix("cal") or 0))
         self._cal_id = cal_id
         self._std_measured = {}
+        # (gamma_f, gamma_r) Networks, or journal paths until read back after a resume
+        self._switch_terms: tuple | None = None
         self._phase = Phase.CALIBRATING
 
     def _activate(self, cal: CalOutcome) -> None:
@@ -1005,6 +1033,8 @@ class Engine:
                     self._start_cal(p["cal_id"])
                 self._std_landings[(p["cal_id"], p["site"])] = int(p["landing"])
                 self._std_measured[p["standard"]] = (None, Verdict(p["verdict"]), ev.seq, p["raw"]["path"])
+                if p.get("switch_terms"):
+                    self._switch_terms = tuple(ref["path"] for ref in p["switch_terms"])
                 self._touchdowns.update(p.get("touchdowns") or {})
                 phase = Phase.CALIBRATING
             elif t == "cal-computed":

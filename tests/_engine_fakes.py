@@ -4,8 +4,8 @@ engine's walk, journal and checks can be tested without the simulated bench.
 
 Physics of the ideal structures (Pozar, Microwave Engineering, 4th ed., ch. 2):
 a line of length l is exp(-gamma l) with gamma = alpha + j omega sqrt(eps_eff)/c.
-Values follow the PLX-7 kit (probelog/kits/plx7.toml): open 6 fF, short 4 pH,
-load 50 ohm + 3 pH, eps_eff 6.35, thru 100 um.
+Standard values are read from the PLX-7 kit (probelog/kits/plx7.toml), so the
+fake's standards are exactly what the kit defines.
 """
 
 from __future__ import annotations
@@ -17,11 +17,13 @@ import skrf
 from skrf.media import DefinedGammaZ0
 
 from probelog.bench import Bench, SweepSettings
+from probelog.calkit import load_kit
 
 ROOT = Path(__file__).resolve().parents[1]
 KIT = ROOT / "probelog" / "kits" / "plx7.toml"
 C0 = 299_792_458.0
 EPS_EFF = 6.35
+_KIT = load_kit(KIT)
 ALPHA_NP_PER_M = 20.0  # about 0.17 dB/mm: a lossy on-chip CPW (REFERENCES.md, verified example)
 
 # site name -> (kind, offset_um, extra)
@@ -99,11 +101,11 @@ def ideal(kind: str, extra: dict, freq: skrf.Frequency) -> skrf.Network:
     media = DefinedGammaZ0(frequency=freq, z0=50.0, gamma=gamma)
     if kind in ("open", "short", "load", "open-stub", "air"):
         if kind == "open":
-            z = 1 / (1j * w * 6e-15)
+            z = 1 / (1j * w * np.polyval(_KIT.open_c_f[::-1], freq.f))
         elif kind == "short":
-            z = 1j * w * 4e-12
+            z = 1j * w * np.polyval(_KIT.short_l_h[::-1], freq.f)
         elif kind == "load":
-            z = 50.0 + 1j * w * 3e-12
+            z = _KIT.load_r_ohm + 1j * w * _KIT.load_l_h
         elif kind == "air":
             z = 1 / (1j * w * 2e-15)  # tips in air: a small capacitance (trade numbers)
         else:

@@ -42,6 +42,9 @@ class Site:
     gap_um: float | None = None
     symmetric: bool = False
     model: dict[str, Any] = field(default_factory=dict)
+    # False for the probe-tip standards block: its definitions (the cal kit) are
+    # referenced to the tips, so the simulator gives it no extra pad parasitics.
+    pads: bool = True
 
 
 @dataclass(frozen=True)
@@ -142,6 +145,7 @@ def _site(t: dict, i: int, path: Path, metals: dict) -> Site:
         gap_um=t.get("gap_um"),
         symmetric=bool(t.get("symmetric", False)),
         model=model,
+        pads=bool(t.get("pads", True)),
     )
 
 

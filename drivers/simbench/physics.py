@@ -198,6 +198,11 @@ def chain(*abcd: np.ndarray) -> np.ndarray:
     return out
 
 
+def _through(f: np.ndarray) -> np.ndarray:
+    """ABCD of a zero-length connection (identity), shape (n, 2, 2)."""
+    return np.broadcast_to(np.eye(2, dtype=complex), (len(f), 2, 2)).copy()
+
+
 def terminated_y(abcd: np.ndarray, y_load: np.ndarray) -> np.ndarray:
     """Input admittance (S) of a 2-port (ABCD) loaded by y_load at its port 2."""
     A, B, C, D = abcd[:, 0, 0], abcd[:, 0, 1], abcd[:, 1, 0], abcd[:, 1, 1]
@@ -290,15 +295,16 @@ class SiteModel:
         if site is None:
             return self.air(f)
         k = site.kind
+        pad1, pad2 = (self.pad(f, 1), self.pad(f, 2)) if site.pads else (_through(f), _through(f))
         if k in ("thru", "line", "device"):
             mid = self.line_abcd(site, f) if k != "device" else self.device_abcd(site, f)
-            return abcd_to_s(chain(self.pad(f, 1), mid, self.pad(f, 2)))
+            return abcd_to_s(chain(pad1, mid, pad2))
         if k in ("open", "short", "load"):
             y_end = {"open": self.open_y, "short": self.short_y, "load": self.load_y}[k](f)
-            y = terminated_y(self.pad(f, 1), y_end)
+            y = terminated_y(pad1, y_end)
         else:  # open-stub / short-stub
             y_end = self.open_y(f) if k == "open-stub" else self.short_y(f)
-            y = terminated_y(chain(self.pad(f, 1), self.line_abcd(site, f)), y_end)
+            y = terminated_y(chain(pad1, self.line_abcd(site, f)), y_end)
         # each port lands on its own (identical) copy of the reflect
         return pair_s(y, y, self.crosstalk_y(f))
 

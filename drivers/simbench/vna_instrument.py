@@ -176,8 +176,8 @@ class SimVna:
 
     def _cmd_data(self, args) -> Reply:
         what = args[0].upper() if len(args) == 1 else ""
-        if what not in ("SPAR", "SPARAMETERS", "STIM", "STIMULUS"):
-            raise ScpiError(-224, f"TRACe:DATA? {','.join(args)!r}: SPARameters or STIMulus")
+        if what not in ("SPAR", "SPARAMETERS", "STIM", "STIMULUS", "SWIT", "SWITCH"):
+            raise ScpiError(-224, f"TRACe:DATA? {','.join(args)!r}: SPARameters, STIMulus or SWITch")
         self._wait_sweep()
         if self._data is None:
             self.errors.push(ScpiError(-230, "no sweep yet; send INITiate:IMMediate first"))
@@ -185,6 +185,15 @@ class SimVna:
         f, s = self._data
         if what.startswith("STIM"):
             return Reply(self._encode(f))
+        if what.startswith("SWIT"):
+            if s.shape[1] != 2:
+                self.errors.push(ScpiError(-230, "switch terms need a 2-port sweep (SENSe:SWEep:PORTs 1,2)"))
+                return Reply(b"#10" if self.binary else b"")
+            em = self.sim.error_model(f)
+            g = np.stack([em.gamma_f, em.gamma_r], axis=1)  # per point: gamma_f, gamma_r
+            values = np.empty((len(f), 4))
+            values[:, 0::2], values[:, 1::2] = g.real, g.imag
+            return Reply(self._encode(values.ravel()))
         # Touchstone order S11 S21 S12 S22 = column-major walk of each (p, p) matrix
         flat = s.transpose(0, 2, 1).reshape(len(f), -1)
         values = np.empty((len(f), flat.shape[1] * 2))
