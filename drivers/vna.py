@@ -100,6 +100,8 @@ class ScpiVna:
         self.resource = self.link.resource
         self.settings: SweepSettings | None = None
         self._power_limit_dbm: float | None = None
+        self._freq: np.ndarray | None = None  # stimulus of the current settings
+        self._ports: int | None = None  # port set last sent with set_ports
         self.ascii_data = False
         try:
             self.idn = self.identify()
@@ -120,6 +122,8 @@ class ScpiVna:
             self.link.command(self.dialect.command("clear_status"))
         self._wait_complete()
         self.settings = None
+        self._freq = None
+        self._ports = None
 
     def configure(self, settings: SweepSettings, power_limit_dbm: float) -> None:
         """Apply a linear sweep (Hz, points, IF bandwidth Hz, power dBm).
@@ -137,6 +141,8 @@ class ScpiVna:
         self._set_data_format()
         self.settings = settings
         self._power_limit_dbm = power_limit_dbm
+        self._freq = None
+        self._ports = None
 
     def sweep(self, ports: int = 2) -> skrf.Network:
         """Trigger one sweep, wait for it, fetch S for ``ports`` (1 or 2) ports."""
@@ -145,15 +151,18 @@ class ScpiVna:
         if self.settings is None:
             raise DriverError(f"{self.resource}: configure() the VNA before the first sweep", resource=self.resource)
         d, link = self.dialect, self.link
-        if d.has("set_ports"):
+        if d.has("set_ports") and self._ports != ports:
             link.command(d.command("set_ports", ports=",".join(str(p) for p in range(1, ports + 1))))
+            self._ports = ports
         link.command(d.command("trigger_single"))
         self._wait_complete(self._sweep_timeout_ms(ports))
         order = d.data_order[ports]
         fetch = d.command("fetch_sparams")
         values = link.query_values(fetch, d.byte_order)
         link.check_errors(fetch)
-        f = self._frequencies()
+        if self._freq is None:  # the stimulus only changes with configure()
+            self._freq = self._frequencies()
+        f = self._freq
         s = sparams_from_values(values, f.size, order)
         return skrf.Network(frequency=skrf.Frequency.from_f(f, unit="Hz"), s=s, z0=Z0_OHM, name="sweep")
 
@@ -168,7 +177,7 @@ class ScpiVna:
         cmd = d.command("fetch_switch_terms")
         values = self.link.query_values(cmd, d.byte_order)
         self.link.check_errors(cmd)
-        f = self._frequencies()
+        f = self._freq if self._freq is not None else self._frequencies()
         if values.size != 4 * f.size:
             raise ReplyError(f"{self.resource}: {cmd!r} returned {values.size} numbers, expected {4 * f.size} "
                              f"(2 complex per point for {f.size} points)", resource=self.resource)
@@ -184,6 +193,8 @@ class ScpiVna:
     def reopen(self) -> None:
         """Open the connection again (after a timeout or a drop) and re-apply settings."""
         self.link.reopen()
+        self._freq = None
+        self._ports = None
         self.idn = self.identify()
         if self.settings is not None and self._power_limit_dbm is not None:
             self.configure(self.settings, self._power_limit_dbm)

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass
 from enum import Enum
 from typing import Iterable
 
@@ -38,9 +38,9 @@ class CheckResult:
     unit: str = ""
 
     def to_json(self) -> dict:
-        d = asdict(self)
-        d["verdict"] = self.verdict.value
-        return d
+        # by hand: dataclasses.asdict deep-copies and is ~10x slower on the landing path
+        return {"name": self.name, "verdict": self.verdict.value, "value": self.value,
+                "limit": self.limit, "at_hz": self.at_hz, "message": self.message, "unit": self.unit}
 
     @classmethod
     def from_json(cls, d: dict) -> "CheckResult":
