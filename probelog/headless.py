@@ -1,8 +1,9 @@
 """Run a session without a person at the keyboard.
 
-Policy: calibrate, accept the calibration when it solved (a failed verification
-is recorded and the run goes on: the verdicts are in the journal for the
-analyst); for every site accept a landing that did not fail, re-land a failed
+Policy: calibrate, re-landing a standard whose contact check failed up to
+``retries`` times; redo a calibration whose verification or agreement failed up
+to ``retries`` times, then accept it when it solved (the verdicts stay in the
+journal for the analyst); for every site accept a landing that did not fail, re-land a failed
 one up to ``retries`` times, then give up on it (recorded as failed) and go on.
 Instrument errors are retried the same way. A failed drift check recalibrates
 once per run; later drift failures are only recorded.
@@ -111,6 +112,8 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
     printer.start(total, done)
     printer.line(f"session {engine.session_id}: {total - done} site landings to go")
     failures_here = 0  # failed landings / instrument errors on the current step
+    cal_redos = 0  # calibrations redone in a row because their verification failed
+    last_key = None  # the step failures_here counts for
     try:
         while engine.phase is not Phase.DONE:
             phase = engine.phase
@@ -123,12 +126,21 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
                 continue
             if phase is Phase.VERIFYING:
                 pending = engine.pending_cal
-                if pending is not None and pending.ok:
-                    engine.accept_calibration("headless: accepted when solved; verdicts on record")
-                else:
+                if pending is None or not pending.ok:
                     engine.redo_calibration("headless: calibration did not solve")
+                elif pending.verdict is Verdict.FAIL and cal_redos < retries:
+                    cal_redos += 1
+                    engine.redo_calibration("headless: verification or agreement failed; measuring the "
+                                            "standards again")
+                    printer.line(f"cal {pending.cal_id} failed its verification: redo {cal_redos}/{retries}")
+                else:
+                    cal_redos = 0
+                    engine.accept_calibration("headless: accepted when solved; verdicts on record")
                 continue
             step = engine.next_step
+            key = (step.kind, step.die, step.site) if step is not None else None
+            if key != last_key:
+                failures_here, last_key = 0, key
             try:
                 outcome = engine.measure()
             except InstrumentError as exc:
@@ -146,10 +158,24 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
             counts["landings"] += 1
             step = outcome.step
             if step.kind is StepKind.CAL_STANDARD:
-                printer.line(f"cal {step.standard:<8} {_where(step)} {outcome.verdict.value}")
+                line = f"cal {step.standard:<8} {_where(step)} L{step.landing} {outcome.verdict.value}"
+                if outcome.verdict is Verdict.FAIL and failures_here < retries:
+                    failures_here += 1
+                    counts["relands"] += 1
+                    engine.reland(f"headless: {_fmt_checks(outcome)}")
+                    printer.line(f"{line} -> re-land ({_fmt_checks(outcome)})")
+                else:
+                    failures_here = 0
+                    printer.line(f"{line} {_fmt_checks(outcome)}".rstrip())
                 continue
             if step.kind is StepKind.DRIFT:
                 printer.line(f"drift {_where(step)} {outcome.verdict.value} {_fmt_checks(outcome)}".rstrip())
+                landed_badly = any(c.name == "contact" and c.verdict is Verdict.FAIL for c in outcome.checks)
+                if landed_badly and failures_here < retries:
+                    failures_here += 1
+                    counts["relands"] += 1
+                    engine.request_drift()  # re-land the reference: its contact failed, not the cal
+                    continue
                 if advised:
                     reason = advised.pop()
                     if counts["recals"] == 0:

@@ -237,6 +237,8 @@ class Engine:
         self._cal_id: str | None = None  # the cal being measured / verified
         self._std_measured: dict[str, tuple[skrf.Network | None, Verdict, int, str]] = {}
         self._std_landings: dict[tuple[str, str], int] = {}
+        self._last_standard: str | None = None
+        self._switch_terms: tuple | None = None
         self._pending_cal: CalOutcome | None = None
         self._active_cal: CalOutcome | None = None
         self._finished: dict[tuple[Die, str], str] = {}  # accept | skip | give-up
@@ -247,6 +249,7 @@ class Engine:
         self._drift_ref: tuple[skrf.Network, int] | None = None
         self._since_drift = 0
         self._drift_due = False
+        self._ref_wanted = False  # a reference is taken right after a cal is accepted
         self._auto_recals = 0
         self._sequence = [(die, site) for die in plan.dies_in_order() for site in plan.sequence_sites]
         if _replay is None:
@@ -380,7 +383,7 @@ class Engine:
         if self._phase is not Phase.PROBING:
             return None
         drift_site = self._drift_site()
-        if drift_site and self._active_cal is not None and (self._drift_ref is None or self._drift_due):
+        if drift_site and self._active_cal is not None and (self._ref_wanted or self._drift_due):
             die = self._drift_die()
             return Step(StepKind.DRIFT, die, drift_site, self._site(drift_site).kind,
                         self._landings.get((die, drift_site), 0) + 1, 0, 1)
@@ -453,8 +456,28 @@ class Engine:
         self._decide("accept", "")
 
     def reland(self, reason: str = "") -> None:
-        """Measure the same site again (its landing number goes up by one)."""
+        """Measure the same site again (its landing number goes up by one). While
+        calibrating, re-measures the standard measured last: its earlier landing
+        stays on record but no longer counts for the calibration."""
+        if self._phase is Phase.CALIBRATING:
+            self._reland_standard(reason)
+            return
         self._decide("reland", reason)
+
+    def _reland_standard(self, reason: str) -> None:
+        with self._busy():
+            role = self._last_standard
+            if role is None or role not in self._std_measured:
+                raise EngineError("no standard measured yet in this calibration to re-land")
+            site = dict(self._required())[role]
+            landing = self._std_landings.get((self._cal_id, site), 1)
+            ev = self._append("decision", {"die": _die_json(self._cal_die()), "site": site, "landing": landing,
+                                           "action": "reland", "reason": reason, "standard": role,
+                                           "cal_id": self._cal_id})
+            del self._std_measured[role]
+            self._last_standard = None
+            self._emit(DecisionRecorded(seq=ev.seq, die=self._cal_die(), site=site, landing=landing,
+                                        action="reland", reason=reason))
 
     def skip(self, reason: str) -> None:
         self._decide("skip", _need_reason(reason, "skip a site"))
@@ -571,7 +594,12 @@ class Engine:
     def _measure_standard(self, step: Step) -> LandingOutcome:
         raw = self._land(step.die, step.site)
         site = self._site(step.site)
-        checks = self._checks(raw, site, previous=None)
+        # raw data: the kind checks expect corrected data, so judge contact by
+        # transmission and by how the standard differs from those already measured
+        from probelog.standard_checks import raw_standard_checks
+
+        earlier = {role: net for role, net in self._standard_networks_by_role().items() if role != step.standard}
+        checks = raw_standard_checks(raw, step.standard, earlier, self._limits())
         verdict = overall(checks)
         suffix = "" if step.landing == 1 else f"-L{step.landing}"
         files = self._write_pair(f"data/cal/{self._cal_id}/{step.site}{suffix}", raw, None, step)
@@ -584,6 +612,7 @@ class Engine:
         })
         self._std_landings[(self._cal_id, step.site)] = step.landing
         self._std_measured[step.standard] = (raw, verdict, ev.seq, files["raw"]["path"])
+        self._last_standard = step.standard
         out = LandingOutcome(step, raw, None, checks, verdict, None, ev.seq, {"raw": files["raw"]["path"]})
         self._emit(StepMeasured(seq=ev.seq, outcome=out))
         return out
@@ -629,16 +658,23 @@ class Engine:
             "verdict": verdict.value, "touchdowns": dict(self._touchdowns),
         })
         self._landings[(step.die, step.site)] = step.landing
-        if ref is None:
+        if ref is None and verdict is not Verdict.FAIL:  # never take a bad landing as the reference
             self._drift_ref = (use, ev.seq)
         self._since_drift = 0
         self._drift_due = False
+        # one try right after the cal; if it landed badly, the next due re-measure
+        # (or request_drift) becomes the reference instead
+        self._ref_wanted = False
         out = LandingOutcome(step, raw, cor, checks, verdict, None, ev.seq,
                              {k: v["path"] for k, v in files.items()})
         self._emit(DriftChecked(seq=ev.seq, outcome=out))
-        if ref is not None and verdict is Verdict.FAIL:
-            worst = next((c for c in checks if c.verdict is Verdict.FAIL), None)
-            reason = (f"drift on {step.site}: {worst.message}" if worst else f"drift on {step.site} failed")
+        # Only the drift figure itself calls for a new cal; a failed contact means the
+        # reference was landed badly and is re-measured, not that the cal went stale.
+        drift_failed = any(c.name == "drift" and c.verdict is Verdict.FAIL for c in checks)
+        contact_failed = any(c.name == "contact" and c.verdict is Verdict.FAIL for c in checks)
+        if ref is not None and drift_failed and not contact_failed:
+            worst = next(c for c in checks if c.name == "drift")
+            reason = f"drift on {step.site}: {worst.message}"
             adv = self._append("recal-requested", {"reason": reason, "advised_by": "drift",
                                                    "drift_seq": ev.seq})
             self._emit(RecalibrationAdvised(seq=adv.seq, reason=reason))
@@ -825,16 +861,20 @@ class Engine:
         """FileRef dicts of the saved cal set, calset.json first."""
         return [{"path": str(r.path), "sha256": r.sha256} for r in _save_calset(calset, self.journal, cal_dir)]
 
+    def _standard_networks_by_role(self) -> dict[str, skrf.Network]:
+        """Raw standards measured so far, keyed by role (open, short, ..., line:<name>)."""
+        out = {}
+        for role, (ntwk, verdict, seq, path) in list(self._std_measured.items()):
+            if ntwk is None:  # resumed mid-calibration: read the raw standard back once
+                ntwk = skrf.Network(str(self.session_dir / path))
+                self._std_measured[role] = (ntwk, verdict, seq, path)
+            out[role] = ntwk
+        return out
+
     def _standard_networks(self) -> dict[str, skrf.Network]:
         """Raw standards keyed by site name (as calibration.solve wants them)."""
         sites = dict(self._required())
-        out = {}
-        for name, (ntwk, verdict, seq, path) in list(self._std_measured.items()):
-            if ntwk is None:  # resumed mid-calibration: read the raw standard back once
-                ntwk = skrf.Network(str(self.session_dir / path))
-                self._std_measured[name] = (ntwk, verdict, seq, path)
-            out[sites[name]] = ntwk
-        return out
+        return {sites[role]: ntwk for role, ntwk in self._standard_networks_by_role().items()}
 
     def _agreement(self, method: str, calset, measured, kit, cal_dir: str) -> dict | None:
         from probelog import calibration as cal
@@ -958,6 +998,7 @@ class Engine:
         self._cal_count = max(self._cal_count, int(cal_id.removeprefix("cal") or 0))
         self._cal_id = cal_id
         self._std_measured = {}
+        self._last_standard: str | None = None
         # (gamma_f, gamma_r) Networks, or journal paths until read back after a resume
         self._switch_terms: tuple | None = None
         self._phase = Phase.CALIBRATING
@@ -966,6 +1007,7 @@ class Engine:
         self._active_cal = cal
         self._pending_cal = None
         self._drift_ref = None  # a new cal needs a new drift reference
+        self._ref_wanted = True
         self._drift_due = False
         self._since_drift = 0
         self._previous.clear()  # repeatability across cals compares apples and pears
@@ -1025,6 +1067,7 @@ class Engine:
         pending: dict | None = None
         active: dict | None = None
         drift_ref: tuple[str, int] | None = None
+        ref_wanted = False
         phase = Phase.CALIBRATING if self._has_cal() else Phase.PROBING
         for ev in events:
             t, p = ev.type, ev.payload
@@ -1033,6 +1076,7 @@ class Engine:
                     self._start_cal(p["cal_id"])
                 self._std_landings[(p["cal_id"], p["site"])] = int(p["landing"])
                 self._std_measured[p["standard"]] = (None, Verdict(p["verdict"]), ev.seq, p["raw"]["path"])
+                self._last_standard = p["standard"]
                 if p.get("switch_terms"):
                     self._switch_terms = tuple(ref["path"] for ref in p["switch_terms"])
                 self._touchdowns.update(p.get("touchdowns") or {})
@@ -1054,7 +1098,7 @@ class Engine:
                 pending["agreement"] = dict(p)
                 pending["verdicts"].append(Verdict(p["verdict"]))
             elif t == "cal-accepted":
-                active, pending, drift_ref = pending, None, None
+                active, pending, drift_ref, ref_wanted = pending, None, None, True
                 self._since_drift, self._drift_due = 0, False
                 phase = Phase.PROBING
             elif t == "cal-rejected":
@@ -1073,9 +1117,13 @@ class Engine:
             elif t == "drift":
                 self._landings[(tuple(p["die"]), p["site"])] = int(p["landing"])
                 self._touchdowns.update(p.get("touchdowns") or {})
-                if p.get("reference_seq") is None:
+                ref_wanted = False
+                if p.get("reference_seq") is None and p.get("verdict") != "fail":
                     drift_ref = ((p.get("corrected") or p["raw"])["path"], ev.seq)
                 self._since_drift, self._drift_due = 0, False
+            elif t == "decision" and p.get("standard"):
+                if p.get("cal_id") == self._cal_id:
+                    self._std_measured.pop(p["standard"], None)
             elif t == "decision":
                 if p["action"] != "reland":
                     self._finished[(tuple(p["die"]), p["site"])] = p["action"]
@@ -1086,6 +1134,7 @@ class Engine:
         # have moved, so its data stays on record but is not decided upon.
         if phase is Phase.DECIDING:
             phase = Phase.PROBING
+        self._ref_wanted = ref_wanted and active is not None
         if active is not None:
             calset = _load_calset(self.session_dir / active["file"])
             self._active_cal = _cal_outcome(active, calset)
