@@ -11,6 +11,7 @@ from __future__ import annotations
 import argparse
 from typing import Callable, Sequence
 
+SIM_TIMEOUT_MS = 2000  # the simulated bench answers in ms; a timeout there is a fault
 DEMO_FAULT_RATE = 0.03  # the demo draws a fault on about 3 % of landings
 
 
@@ -50,7 +51,10 @@ def build_bench(args: argparse.Namespace, probe_ids: Sequence[str],
             if not 0.0 <= rate <= 1.0:
                 raise UsageError(f"--fault-rate must be between 0 and 1, got {rate:g}")
             try:
-                sim = SimBench(seed=args.seed, fault_rate=rate, faults=list(args.fault))
+                # a "slow" fault outlasts the sim's 2 s I/O timeout by 1 s: the
+                # operator sees a timeout without a real instrument's 10 s wait
+                sim = SimBench(seed=args.seed, fault_rate=rate, faults=list(args.fault),
+                               slow_reply_s=SIM_TIMEOUT_MS / 1000 + 1.0)
             except ValueError as exc:
                 raise UsageError(f"--fault: {exc}") from None
             sim_vna, sim_prober = sim.start()
@@ -62,7 +66,7 @@ def build_bench(args: argparse.Namespace, probe_ids: Sequence[str],
                         f"{len(args.fault)} injected faults)")
         elif prober_word == "sim":
             raise UsageError("--prober sim needs --bench sim")
-        vna = _vna(args, vna_res)
+        vna = _vna(args, vna_res, SIM_TIMEOUT_MS if args.bench == "sim" else None)
         closers.append(vna.close)
         prober = _prober(args, prober_word, probe_ids, confirm)
         desc.append(f"VNA {vna_res or args.watch_folder}, prober {prober_word}")
@@ -78,7 +82,7 @@ def build_bench(args: argparse.Namespace, probe_ids: Sequence[str],
         raise UsageError(f"cannot set up the bench: {type(exc).__name__}: {exc}") from None
 
 
-def _vna(args, resource):
+def _vna(args, resource, timeout_ms=None):
     from tui.cli import UsageError
 
     if args.watch_folder:
@@ -89,7 +93,7 @@ def _vna(args, resource):
         raise UsageError("--bench visa needs --vna RESOURCE (or --watch-folder DIR)")
     from drivers.vna import ScpiVna
 
-    return ScpiVna(resource, dialect=args.vna_dialect)
+    return ScpiVna(resource, dialect=args.vna_dialect, timeout_ms=timeout_ms)
 
 
 def _prober(args, word, probe_ids, confirm):
