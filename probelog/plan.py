@@ -68,7 +68,9 @@ class Site:
     """A structure on every die, at ``offset_um`` (x, y in um) from the die origin.
 
     Expectations are None when the plan does not give them: ``z0_window_ohm``
-    (lo, hi) in ohm, ``alpha_db_per_mm_max`` in dB/mm, ``eps_eff_window`` (lo, hi).
+    (lo, hi) in ohm, ``alpha_db_per_mm_max`` in dB/mm, ``eps_eff_window`` (lo, hi),
+    ``window_band_hz`` (lo, hi) in Hz: where the windows are judged (default: the
+    whole sweep).
     """
 
     name: str
@@ -80,6 +82,7 @@ class Site:
     z0_window_ohm: tuple[float, float] | None = None
     alpha_db_per_mm_max: float | None = None
     eps_eff_window: tuple[float, float] | None = None
+    window_band_hz: tuple[float, float] | None = None
     line_type: str | None = None
     width_um: float | None = None
     gap_um: float | None = None
@@ -460,7 +463,7 @@ def _name_list(ctx, t, key, path, default=_MISSING) -> tuple[str, ...]:
 _TOP = ("plan", "wafer", "site", "sequence", "calibration", "vna", "probes", "limits")
 _WAFER = ("id", "lot", "chip", "cols", "rows", "die_pitch_um", "skip", "dies", "order")
 _SITE = ("name", "kind", "offset_um", "ports", "symmetric", "length_um", "z0_window_ohm",
-         "alpha_db_per_mm_max", "eps_eff_window", "line_type", "width_um", "gap_um", "metal", "note")
+         "alpha_db_per_mm_max", "eps_eff_window", "window_band_hz", "line_type", "width_um", "gap_um", "metal", "note")
 _SEQ = ("sites", "drift_site", "drift_die", "drift_every_landings", "recal_every_hours")
 _CAL = ("method", "compare_with", "kit", "die", "standards", "verification")
 _VNA = ("start_hz", "stop_hz", "points", "ifbw_hz", "power_dbm", "power_limit_dbm")
@@ -587,6 +590,8 @@ def _sites(ctx: _Ctx, raw: dict, wafer: Wafer) -> tuple[Site, ...]:
             alpha_db_per_mm_max=alpha,
             eps_eff_window=_pair(ctx, t, "eps_eff_window", f"{p}.eps_eff_window",
                                  "a window [low, high]", None, ordered=True, positive=True),
+            window_band_hz=_pair(ctx, t, "window_band_hz", f"{p}.window_band_hz",
+                                 "a band [low, high] in Hz", None, ordered=True, positive=True),
             line_type=_str(ctx, t, "line_type", f"{p}.line_type", None),
             width_um=_num(ctx, t, "width_um", f"{p}.width_um", None, positive=True, allow_zero=False),
             gap_um=_num(ctx, t, "gap_um", f"{p}.gap_um", None, positive=True, allow_zero=False),

@@ -307,3 +307,24 @@ def test_run_checks_picks_by_kind(f, med):
     assert dev == ["contact", "passivity", "reciprocity"]
     with pytest.raises(ValueError, match="unknown site kind 'stub'"):
         run_checks(line, "stub", LIM)
+
+
+def test_line_window_band_keeps_pad_effects_out_of_the_judgement():
+    # A 500 um lossless 50 ohm line, eps_eff 6.35, with 12 fF shunt pads at both
+    # ends (ABCD cascade, Pozar 4th ed. Table 4.1): the pads add capacitance, so
+    # the single-line Z0 reads about 44 ohm at low frequency (sqrt(L / (C + 2 Cpad / l)))
+    # and swings far off near the half-wavelength (~75 GHz). Over 1-20 GHz it stays
+    # within 40-50 ohm; over the whole 1-110 GHz it does not.
+    import skrf
+    from skrf.media import DefinedGammaZ0
+
+    freq = skrf.Frequency(1, 110, 219, "GHz")
+    w = 2 * np.pi * freq.f
+    media = DefinedGammaZ0(freq, z0=50.0, gamma=1j * w * np.sqrt(6.35) / 299_792_458.0)
+    pad = media.shunt_capacitor(12e-15)
+    ntwk = pad ** media.line(500, "um") ** pad
+    exp = {"length_um": 500.0, "z0_window_ohm": [40.0, 50.0]}
+    whole = line_window(ntwk.f, ntwk.s, exp, Limits())
+    banded = line_window(ntwk.f, ntwk.s, dict(exp, window_band_hz=[1e9, 20e9]), Limits())
+    assert whole.verdict is Verdict.FAIL and whole.at_hz > 20e9
+    assert banded.verdict is Verdict.PASS and banded.at_hz <= 20e9
