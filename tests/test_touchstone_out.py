@@ -89,3 +89,41 @@ def test_unusable_inputs_are_refused():
     ntwk.z0 = np.array([50.0, 25.0])
     with pytest.raises(ValueError, match="one real reference impedance"):
         network_to_touchstone(ntwk, {})
+
+
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from probelog.touchstone_out import _fast_range, _scientific
+
+_IN_RANGE = st.one_of(st.just(0.0), st.floats(1e-300, 1e300, exclude_min=True, exclude_max=True),
+                      st.floats(-1e300, -1e-300, exclude_min=True, exclude_max=True))
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(_IN_RANGE, min_size=1, max_size=50))
+def test_vectorised_numbers_parse_back_to_15_digits(values):
+    # Python's float() parser is the reference reader.
+    x = np.array(values)
+    assert _fast_range(np.abs(x))
+    text = _scientific(x, 15).tobytes().decode("ascii")
+    back = np.array([float(text[i * 22:(i + 1) * 22]) for i in range(len(x))])
+    tol = np.maximum(np.abs(x) * 1e-14, 5e-324)
+    assert np.all(np.abs(back - x) <= tol), (x, back)
+
+
+def test_decade_edges_and_zero_format_exactly():
+    x = np.array([0.0, 1.0, -1.0, 1000.0, 1e-3, 9.999999999999999e2, 1e300, -2.5e-300])
+    text = _scientific(x, 15).tobytes().decode("ascii")
+    parts = [text[i * 22:(i + 1) * 22] for i in range(len(x))]
+    assert parts[0] == " 0.00000000000000e+000"
+    assert parts[3] == " 1.00000000000000e+003"
+    assert [float(p) for p in parts] == pytest.approx(list(x), rel=1e-14)
+
+
+def test_non_finite_and_subnormal_data_still_written_by_skrf(tmp_path):
+    ntwk = _random_network(2, 5, seed=9)
+    ntwk.s[2, 0, 0] = np.nan
+    data = network_to_touchstone(ntwk, {"seq": 1})
+    assert b"nan" in data.lower()
+    assert not _fast_range(np.array([5e-324])) and not _fast_range(np.array([1.7e308]))
