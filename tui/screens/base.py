@@ -1,0 +1,126 @@
+"""What the two bench screens (calibrate, probe) share: the engine workers, the
+busy flag that greys out keys while the instrument works, and the common keys.
+
+Every engine call runs in the thread worker group ``bench`` (one at a time) and
+reports back with a past-tense message; a failed call surfaces through
+Worker.StateChanged, handled once in the app.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from textual import work
+from textual.reactive import reactive
+from textual.screen import Screen
+from textual.worker import Worker, WorkerState
+
+from tui.messages import CalibrationSolved, ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
+from tui.screens.dialogs import AskReason
+from tui.widgets.logbook import Logbook
+from tui.widgets.smith import SmithChart
+
+NOTE_PRESETS = ("pad scrubbed, marks visible", "debris near the pads", "probe tips cleaned",
+                "planarity adjusted")
+
+
+def reflections(outcome: Any) -> tuple[list[tuple[str, Any]], Any]:
+    """(label, Gamma over frequency) of each port, from the corrected sweep when
+    there is one, else the raw; plus the network used."""
+    net = outcome.corrected if outcome.corrected is not None else outcome.raw
+    s = net.s
+    traces = [("S11", s[:, 0, 0])]
+    if s.shape[1] > 1:
+        traces.append(("S22", s[:, 1, 1]))
+    return traces, net
+
+
+class BenchScreen(Screen):
+    """Base of the calibrate and probe screens."""
+
+    busy: reactive[bool] = reactive(False)
+
+    @property
+    def engine(self) -> Any:
+        return self.app.engine
+
+    # ---------------------------------------------------------------- workers
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="bench", description="Landing and sweeping")
+    def measure_next(self, before: str = "") -> None:
+        """Optionally record a decision first (reland / drift), then measure the next step."""
+        engine = self.engine
+        if before == "reland":
+            engine.reland()
+            self.post_message(DecisionRecorded("reland"))
+        elif before == "drift":
+            engine.request_drift()
+        self.post_message(LandingStarted(engine.next_step))
+        outcome = engine.measure()
+        self.post_message(SweepMeasured(outcome))
+        self.post_message(ChecksFinished(outcome))
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="bench", description="Solving the calibration")
+    def solve_calibration(self) -> None:
+        self.post_message(CalibrationSolved(self.engine.compute_calibration()))
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="bench", description="Recording a decision")
+    def record(self, action: str, reason: str = "", then_measure: bool = False) -> None:
+        """Journal one operator decision through the engine."""
+        engine = self.engine
+        calls = {
+            "accept": lambda: engine.accept(),
+            "skip": lambda: engine.skip(reason),
+            "note": lambda: engine.note(reason),
+            "recalibrate": lambda: engine.recalibrate(reason),
+            "cal-accept": lambda: engine.accept_calibration(),
+            "cal-redo": lambda: engine.redo_calibration(reason),
+        }
+        calls[action]()
+        self.post_message(DecisionRecorded(action, reason))
+        if then_measure and engine.next_step is not None:
+            self.post_message(LandingStarted(engine.next_step))
+            outcome = engine.measure()
+            self.post_message(SweepMeasured(outcome))
+            self.post_message(ChecksFinished(outcome))
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        if event.state is WorkerState.ERROR:
+            self.app.worker_failed(event.worker)
+        if event.worker.group == "bench":
+            self.busy = event.state in (WorkerState.PENDING, WorkerState.RUNNING)
+            if not self.busy:
+                self.refresh_view()
+
+    def watch_busy(self, _busy: bool) -> None:
+        self.refresh_bindings()
+
+    # ---------------------------------------------------------------- views
+
+    def refresh_view(self) -> None:
+        """Redraw what the engine's state says (overridden by each screen)."""
+
+    def journal_grew(self, events: list[dict]) -> None:
+        for log in self.query(Logbook):
+            log.sync(self.app.journal_events)
+
+    def on_mount(self) -> None:
+        for log in self.query(Logbook):
+            log.sync(self.app.journal_events)
+        self.refresh_view()
+
+    # ---------------------------------------------------------------- shared keys
+
+    def action_note(self) -> None:
+        def done(text: str | None) -> None:
+            if text:
+                self.record("note", text)
+        self.app.push_screen(AskReason("Note for the journal (at the current die and site):", NOTE_PRESETS), done)
+
+    def action_toggle_polar(self) -> None:
+        for chart in self.query(SmithChart):
+            chart.toggle_mode()
+
+    def action_toggle_logbook(self) -> None:
+        for log in self.query(Logbook):
+            log.display = not log.display

@@ -1,0 +1,272 @@
+"""Probe: walk the plan one landing at a time. Where we are, what comes next, the
+sweep as it arrives, the verdict of every check in large form, the die map, the
+logbook and the tip wear; one key per step."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from textual import events
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical
+from textual.widgets import Footer, Header
+
+from tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
+from tui.screens.base import BenchScreen, reflections
+from tui.screens.dialogs import AskReason, Confirm
+from tui.widgets.die_map import DieMap
+from tui.widgets.logbook import Logbook
+from tui.widgets.smith import SmithChart
+from tui.widgets.sweep_plot import SweepPlot
+from tui.widgets.tip_wear import TipWear
+from tui.widgets.verdict_board import VerdictBoard, summarize, verdict_word
+from tui.widgets.where_bar import WhereBar, describe_step, kind_name
+
+SKIP_PRESETS = ("structure damaged", "pads contaminated", "die known bad", "out of time on this wafer")
+RECAL_PRESETS = ("drift reference out of limits", "probes re-planarised", "scheduled recalibration",
+                 "room temperature changed")
+COMPACT_WIDTH, COMPACT_HEIGHT = 100, 32
+
+
+def flat_metrics(metrics: Any, prefix: str = "") -> dict[str, float]:
+    """Numeric leaves of a (possibly nested) metrics dict, keys joined with '.'."""
+    out: dict[str, float] = {}
+    if isinstance(metrics, dict):
+        for k, v in metrics.items():
+            key = f"{prefix}{k}"
+            if isinstance(v, (int, float)) and not isinstance(v, bool):
+                out[key] = float(v)
+            elif isinstance(v, dict):
+                out.update(flat_metrics(v, key + "."))
+    return out
+
+
+def die_metrics(journal_events: list[dict]) -> dict[tuple[int, int], dict[str, float]]:
+    """Latest landing metrics per die, from the journal (the site name prefixes each key)."""
+    out: dict[tuple[int, int], dict[str, float]] = {}
+    for ev in journal_events:
+        p = ev.get("payload") or {}
+        if ev.get("type") == "landing" and p.get("metrics"):
+            die = tuple(p["die"])
+            out.setdefault(die, {}).update(flat_metrics(p["metrics"], f"{p.get('site')}."))
+    return out
+
+
+def die_history(journal_events: list[dict], die: tuple[int, int]) -> list[str]:
+    """Landings and decisions on one die, one line each, from the journal."""
+    lines = []
+    for ev in journal_events:
+        p = ev.get("payload") or {}
+        if ev.get("type") not in ("landing", "decision") or tuple(p.get("die") or ()) != die:
+            continue
+        if ev["type"] == "landing":
+            lines.append(f"{p.get('site')} L{p.get('landing')}: {verdict_word_from(p.get('verdict'))}")
+        else:
+            reason = f" ({p['reason']})" if p.get("reason") else ""
+            lines.append(f"{p.get('site')} L{p.get('landing')}: {p.get('action')}{reason}")
+    return lines
+
+
+def verdict_word_from(value: str | None) -> str:
+    from probelog.verdicts import Verdict
+
+    try:
+        return verdict_word(Verdict(value))
+    except ValueError:
+        return str(value)
+
+
+class Probe(BenchScreen):
+    """The probing screen."""
+
+    CSS_PATH = "probe.tcss"
+    BINDINGS = [
+        Binding("space,m", "measure", "land", tooltip="Move to the next site, touch down and sweep"),
+        Binding("enter", "accept_next", "accept+land", tooltip="Keep this landing and land on the next site"),
+        Binding("a", "accept", "accept", tooltip="Keep this landing and move on"),
+        Binding("r", "reland", "re-land", tooltip="Lift, touch down again on the same site and sweep"),
+        Binding("s", "skip", "skip", tooltip="Skip this site (asks a reason)"),
+        Binding("n", "note", "note", tooltip="Add a note at this die and site"),
+        Binding("d", "drift", "drift ref", tooltip="Re-measure the drift reference now"),
+        Binding("c", "recalibrate", "recal", tooltip="Go back and calibrate again (asks a reason)"),
+        Binding("w", "toggle_map", "die map", tooltip="Show the die map and move its cursor"),
+        Binding("v", "colour_map", "map colour", tooltip="Colour the die map by status or by a metric"),
+        Binding("j", "toggle_logbook", "logbook", tooltip="Show or hide the logbook"),
+        Binding("p", "toggle_polar", "smith/polar", tooltip="Switch the reflection chart between Smith and polar"),
+        Binding("q", "app.close_session", "quit", tooltip="Close the journal and quit"),
+    ]
+
+    def compose(self) -> ComposeResult:
+        yield Header()
+        yield WhereBar(id="where")
+        with Horizontal(id="probe-body"):
+            with Vertical(id="probe-left"):
+                yield VerdictBoard(id="board")
+                yield Logbook(id="logbook")
+            with Vertical(id="probe-right"):
+                yield SweepPlot(id="sweep")
+                with Horizontal(id="probe-lower"):
+                    yield SmithChart(id="smith")
+                    with Vertical(id="side"):
+                        yield DieMap(id="map")
+                        yield TipWear(id="wear")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.title = "probelog"
+        self.sub_title = "probing"
+        self._compact: bool | None = None
+        super().on_mount()
+        last = self.engine.last_outcome
+        if last is not None:  # resumed (or came back) while a landing awaits a decision
+            self._show_outcome(last)
+
+    def on_resize(self, event: events.Resize) -> None:
+        compact = event.size.width < COMPACT_WIDTH or event.size.height < COMPACT_HEIGHT
+        if compact != self._compact:
+            self._compact = compact
+            self.set_class(compact, "compact")
+            self.query_one("#logbook").display = not compact
+            self.query_one("#side").display = not compact
+
+    # ---------------------------------------------------------------- keys
+
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        engine = self.engine
+        phase = kind_name(engine.phase)
+        nxt = engine.next_step
+        if action in ("measure", "accept_next", "accept", "reland", "skip", "note", "drift",
+                      "recalibrate") and self.busy:
+            return None
+        if action == "measure":
+            return True if phase == "PROBING" and nxt is not None else None
+        if action in ("accept", "reland", "accept_next"):
+            return True if phase == "DECIDING" else None
+        if action == "skip":
+            return True if phase == "DECIDING" or (phase == "PROBING" and nxt is not None
+                                                   and kind_name(nxt.kind) == "SITE") else None
+        if action in ("drift", "recalibrate"):
+            return True if phase == "PROBING" else None
+        return True
+
+    def action_measure(self) -> None:
+        self.measure_next()
+
+    def action_accept(self) -> None:
+        self.record("accept")
+
+    def action_accept_next(self) -> None:
+        self.record("accept", then_measure=True)
+
+    def action_reland(self) -> None:
+        self.measure_next("reland")
+
+    def action_drift(self) -> None:
+        self.measure_next("drift")
+
+    def action_skip(self) -> None:
+        def done(reason: str | None) -> None:
+            if reason:
+                self.record("skip", reason)
+        self.app.push_screen(AskReason(f"Skip {self._target()}? Why:", SKIP_PRESETS), done)
+
+    def action_recalibrate(self) -> None:
+        def done(reason: str | None) -> None:
+            if reason:
+                self.record("recalibrate", reason)
+        self.app.push_screen(AskReason("Recalibrate now? Why:", RECAL_PRESETS), done)
+
+    def action_toggle_map(self) -> None:
+        side, die_map = self.query_one("#side"), self.query_one("#map", DieMap)
+        if not side.display:
+            side.display = True
+            die_map.focus()
+        elif die_map.has_focus:
+            die_map.blur()
+            if self._compact:
+                side.display = False
+        else:
+            die_map.focus()
+
+    def action_colour_map(self) -> None:
+        choice = self.query_one("#map", DieMap).cycle_colouring()
+        self.notify(f"die map coloured by {choice}", timeout=2)
+
+    def on_die_map_die_chosen(self, message: DieMap.DieChosen) -> None:
+        die = message.die
+        lines = die_history(list(self.app.journal_events), die)
+        status = self.engine.wafer_status.get(die, "?")
+        body = "\n".join(lines[-8:]) if lines else "nothing measured here yet"
+        self.notify(body, title=f"die {die[0]},{die[1]}: {status}", timeout=8)
+
+    def _target(self) -> str:
+        last = self.engine.last_outcome
+        if kind_name(self.engine.phase) == "DECIDING" and last is not None:
+            return describe_step(last.step)
+        return describe_step(self.engine.next_step)
+
+    # ---------------------------------------------------------------- messages
+
+    def on_landing_started(self, message: LandingStarted) -> None:
+        self.query_one("#board", VerdictBoard).show_busy(f"landing: {describe_step(message.step)}")
+        self._where(doing="▶ moving at separation, contacting, sweeping…")
+
+    def on_sweep_measured(self, message: SweepMeasured) -> None:
+        traces, net = reflections(message.outcome)
+        caption = f"{message.outcome.step.site} L{message.outcome.step.landing}"
+        self.query_one("#sweep", SweepPlot).show_network(net.f, net.s, caption)
+        self.query_one("#smith", SmithChart).set_traces(traces, caption)
+
+    def on_checks_finished(self, message: ChecksFinished) -> None:
+        o = message.outcome
+        prefix = "drift reference · " if kind_name(o.step.kind) == "DRIFT" else ""
+        self.query_one("#board", VerdictBoard).show_checks(o.checks, prefix + summarize(o), o.verdict)
+
+    def on_decision_recorded(self, message: DecisionRecorded) -> None:
+        if message.action in ("accept", "skip"):
+            self.query_one("#board", VerdictBoard).show_busy(f"{message.action} recorded · next: space")
+
+    def _show_outcome(self, outcome: Any) -> None:
+        self.on_sweep_measured(SweepMeasured(outcome))
+        self.on_checks_finished(ChecksFinished(outcome))
+
+    # ---------------------------------------------------------------- view
+
+    def refresh_view(self) -> None:
+        engine = self.engine
+        last = engine.last_outcome
+        current = last.step.die if last is not None else (engine.next_step.die if engine.next_step else None)
+        self.query_one("#map", DieMap).update_state(engine.wafer_status, current,
+                                                    die_metrics(list(self.app.journal_events)))
+        life = getattr(getattr(getattr(engine, "plan", None), "probes", None), "wear_warn_touchdowns", None)
+        # the plan's warning threshold is 80 % of the life we draw against
+        self.query_one("#wear", TipWear).update_counts(engine.touchdowns, int(life / 0.8) if life else None)
+        self._where()
+        self.refresh_bindings()
+
+    def journal_grew(self, events_: list[dict]) -> None:
+        super().journal_grew(events_)
+        if any(e.get("type") == "landing" and (e.get("payload") or {}).get("metrics") for e in events_):
+            self.query_one("#map", DieMap).update_state(self.engine.wafer_status, self.query_one("#map", DieMap).current,
+                                                        die_metrics(list(self.app.journal_events)))
+
+    def _where(self, doing: str | None = None) -> None:
+        engine = self.engine
+        phase = kind_name(engine.phase)
+        done, total = engine.progress
+        last, nxt = engine.last_outcome, engine.next_step
+        if phase == "DECIDING" and last is not None:
+            here = f"{describe_step(last.step)} · {verdict_word(last.verdict)} · decide"
+            next_ = "[a] accept  [enter] accept+land next  [r] re-land  [s] skip"
+        elif phase == "DONE":
+            here, next_ = "every site of the plan is decided", "[q] close the journal and quit"
+        else:
+            here = describe_step(last.step) if last is not None else "probes up"
+            next_ = f"{describe_step(nxt)}   [space]" if nxt is not None else "—"
+            if nxt is not None and kind_name(nxt.kind) == "DRIFT":
+                next_ = "drift reference: " + next_
+        here += f"   ·   sites {done}/{total}"
+        if doing is None:
+            doing = "busy…" if self.busy else ("DONE" if phase == "DONE" else "idle: waiting for you")
+        self.query_one("#where", WhereBar).show(here, next_, doing)
