@@ -198,7 +198,9 @@ class ScpiProber(InterlockedProber):
 
     def _run(self, operation: str, **values) -> None:
         cmd = self.dialect.command(operation, **values)
-        self.link.command(cmd)
+        # one error-queue read after *OPC? covers the command too: a rejected
+        # command still completes, and its error is waiting in the queue
+        self.link.write(cmd)
         done = self.dialect.command("wait_complete")
         reply = self.link.query(done)
         if reply.strip() not in ("1", "+1"):

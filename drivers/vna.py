@@ -154,8 +154,9 @@ class ScpiVna:
         if d.has("set_ports") and self._ports != ports:
             link.command(d.command("set_ports", ports=",".join(str(p) for p in range(1, ports + 1))))
             self._ports = ports
-        link.command(d.command("trigger_single"))
-        self._wait_complete(self._sweep_timeout_ms(ports))
+        trigger = d.command("trigger_single")
+        link.write(trigger)  # its errors are read with the *OPC? below
+        self._wait_complete(self._sweep_timeout_ms(ports), after=trigger)
         order = d.data_order[ports]
         fetch = d.command("fetch_sparams")
         values = link.query_values(fetch, d.byte_order)
@@ -201,12 +202,12 @@ class ScpiVna:
 
     # -- helpers
 
-    def _wait_complete(self, timeout_ms: int | None = None) -> None:
+    def _wait_complete(self, timeout_ms: int | None = None, after: str | None = None) -> None:
         cmd = self.dialect.command("wait_complete")
         reply = self.link.query(cmd, timeout_ms=timeout_ms)
         if reply.strip() not in ("1", "+1"):
             raise ReplyError(f"{self.resource}: {cmd!r} answered {reply!r}, expected 1", resource=self.resource)
-        self.link.check_errors(cmd)
+        self.link.check_errors(after or cmd)
 
     def _sweep_timeout_ms(self, ports: int) -> int:
         # Rough sweep time: points / IFBW per receiver pass, one pass per driven port,

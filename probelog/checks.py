@@ -319,10 +319,27 @@ def contact(
 # ---------------------------------------------------------------- passivity, reciprocity, symmetry
 
 
+def largest_singular_value(s: np.ndarray) -> np.ndarray:
+    """sigma_max of each (n, n) matrix of ``s`` (n_freq, n, n).
+
+    For 2-ports in closed form: sigma_max^2 = (F + sqrt(F^2 - 4 |det S|^2)) / 2
+    with F the squared Frobenius norm (the eigenvalues of S^H S; Horn & Johnson,
+    Matrix Analysis, ch. 7, from memory); ~10x faster than a batched SVD. Other
+    sizes use numpy's SVD."""
+    if s.shape[1:] == (1, 1):
+        return np.abs(s[:, 0, 0])
+    if s.shape[1:] != (2, 2):
+        return np.linalg.svd(s, compute_uv=False)[:, 0]
+    fro = np.einsum("fij,fij->f", s.real, s.real) + np.einsum("fij,fij->f", s.imag, s.imag)
+    det = s[:, 0, 0] * s[:, 1, 1] - s[:, 0, 1] * s[:, 1, 0]
+    disc = np.maximum(fro * fro - 4.0 * (det.real ** 2 + det.imag ** 2), 0.0)
+    return np.sqrt(0.5 * (fro + np.sqrt(disc)))
+
+
 def passivity(f_hz: np.ndarray, s: np.ndarray, limits: Limits) -> CheckResult:
     """Largest singular value of S over frequency: passive iff <= 1 everywhere
     (I - S^H S positive semidefinite). Value is sigma_max, limit 1 + ``passivity_fail``."""
-    sigma = np.linalg.svd(s, compute_uv=False)[:, 0]
+    sigma = largest_singular_value(s)
     i = int(np.argmax(np.where(np.isnan(sigma), np.inf, sigma)))
     value = float(sigma[i])
     verdict = _grade(value - 1.0, limits.passivity_warn, limits.passivity_fail)

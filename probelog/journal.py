@@ -416,7 +416,7 @@ class Journal:
         existing = [int(m.group(1)) for p in self.root.iterdir()
                     if (m := re.fullmatch(re.escape(TORN_PREFIX) + r"(\d+)", p.name))]
         name = f"{TORN_PREFIX}{max(existing, default=0) + 1}"
-        self._atomic_write(self.root / name, tail)
+        self._atomic_write([(self.root / name, tail)])
         return name
 
     # ------------------------------------------------------------ writing
@@ -479,20 +479,29 @@ class Journal:
 
         Never overwrites: data files are immutable once written.
         """
-        rel = _safe_rel(relpath)
-        if rel is None or rel.parts[0] != DATA_DIR or len(rel.parts) < 2 or any(p.startswith(".") for p in rel.parts):
-            raise JournalError(f"{relpath!r}: expected a relative path under {DATA_DIR}/ without '..' or hidden parts")
+        return self.write_files([(relpath, data)])[0]
+
+    def write_files(self, items: list[tuple[str, bytes]]) -> list[FileRef]:
+        """Store several files as :meth:`write_file` does, sharing one fsync per
+        folder (a landing's raw and corrected sweeps land in one folder)."""
+        targets = []
+        for relpath, data in items:
+            rel = _safe_rel(relpath)
+            if rel is None or rel.parts[0] != DATA_DIR or len(rel.parts) < 2 or any(p.startswith(".") for p in rel.parts):
+                raise JournalError(f"{relpath!r}: expected a relative path under {DATA_DIR}/ without '..' or hidden parts")
+            target = self.root / rel
+            if os.path.lexists(target) or target in (t for _, t, _ in targets):
+                raise JournalError(f"{target}: exists already; data files are never overwritten")
+            targets.append((rel, target, data))
         with self._mutex:
             self._usable()
-        target = self.root / rel
-        if os.path.lexists(target):
-            raise JournalError(f"{target}: exists already; data files are never overwritten")
         try:
-            self._make_dirs(target.parent)
-            self._atomic_write(target, data)
+            for _, target, _ in targets:
+                self._make_dirs(target.parent)
+            self._atomic_write([(target, data) for _, target, data in targets])
         except OSError as exc:
-            raise JournalError(f"{target}: not written: {_os_reason(exc)}") from None
-        return FileRef(rel.as_posix(), hashlib.sha256(data).hexdigest())
+            raise JournalError(f"{exc.filename or targets[0][1]}: not written: {_os_reason(exc)}") from None
+        return [FileRef(rel.as_posix(), hashlib.sha256(data).hexdigest()) for rel, _, data in targets]
 
     def _make_dirs(self, folder: Path) -> None:
         missing = []
@@ -504,24 +513,32 @@ class Journal:
             d.mkdir()
             _fsync_dir(d.parent)  # the new folder's name is durable too
 
-    def _atomic_write(self, target: Path, data: bytes) -> None:
-        self._temp_n += 1
-        temp = target.with_name(f".{target.name}.tmp-{os.getpid()}-{self._temp_n}")
-        fd = os.open(temp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_CLOEXEC, 0o644)
+    def _atomic_write(self, files: list[tuple[Path, bytes]]) -> None:
+        """Temp name, write, fsync; then rename each into place and fsync each
+        folder once. A crash leaves either the old state or the whole file."""
+        temps: list[Path] = []
         try:
-            try:
-                _write_all(fd, data)
-                os.fsync(fd)
-            finally:
-                os.close(fd)
-            os.replace(temp, target)
+            for target, data in files:
+                self._temp_n += 1
+                temp = target.with_name(f".{target.name}.tmp-{os.getpid()}-{self._temp_n}")
+                fd = os.open(temp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_CLOEXEC, 0o644)
+                temps.append(temp)
+                try:
+                    _write_all(fd, data)
+                    os.fsync(fd)
+                finally:
+                    os.close(fd)
+            for temp, (target, _) in zip(temps, files):
+                os.replace(temp, target)
         except BaseException:
-            try:  # our own unfinished temporary file, never a data file
-                os.unlink(temp)
-            except OSError:
-                pass
+            for temp in temps:  # our own unfinished temporary files, never a data file
+                try:
+                    os.unlink(temp)
+                except OSError:
+                    pass
             raise
-        _fsync_dir(target.parent)
+        for folder in dict.fromkeys(target.parent for target, _ in files):
+            _fsync_dir(folder)
 
 
 # --------------------------------------------------------------------------- verify

@@ -837,12 +837,20 @@ class Engine:
             return None  # metrics are information; the line-window check judges
 
     def _write_pair(self, base: str, raw: skrf.Network, cor: skrf.Network | None, step: Step) -> dict:
-        files = {"raw": self._write_net(f"{base}-raw", raw, step, "raw")}
-        if cor is not None:
-            files["corrected"] = self._write_net(f"{base}-cor", cor, step, "corrected")
-        return files
+        """Raw (and corrected) sweep files of one landing, stored together."""
+        nets = {"raw": raw} if cor is None else {"raw": raw, "corrected": cor}
+        items = [(f"{base}-{'raw' if what == 'raw' else 'cor'}.s{n.nports}p",
+                  _touchstone_bytes(n, self._header(n, step, what))) for what, n in nets.items()]
+        refs = self.journal.write_files(items)
+        return {what: {"path": str(ref.path), "sha256": ref.sha256} for what, ref in zip(nets, refs)}
 
     def _write_net(self, stem: str, ntwk: skrf.Network, step: Step, what: str) -> dict:
+        data = _touchstone_bytes(ntwk, self._header(ntwk, step, what))
+        ref = self.journal.write_file(f"{stem}.s{ntwk.nports}p", data)
+        return {"path": str(ref.path), "sha256": ref.sha256}
+
+    def _header(self, ntwk: skrf.Network, step: Step, what: str) -> dict:
+        """The self-describing comment header of a data file."""
         s = self.plan.settings
         header = {
             "session": self.session_id, "seq": self._last_seq() + 1, "what": what,
@@ -853,9 +861,7 @@ class Engine:
             "wafer": self._wafer_id(), "start_hz": s.start_hz, "stop_hz": s.stop_hz,
             "points": s.points, "ifbw_hz": s.ifbw_hz, "power_dbm": s.power_dbm,
         }
-        data = _touchstone_bytes(ntwk, header)
-        ref = self.journal.write_file(f"{stem}.s{ntwk.nports}p", data)
-        return {"path": str(ref.path), "sha256": ref.sha256}
+        return header
 
     def _save_calset(self, calset, cal_dir: str) -> list[dict]:
         """FileRef dicts of the saved cal set, calset.json first."""

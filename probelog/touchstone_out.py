@@ -85,10 +85,16 @@ def _skrf_text(ntwk: skrf.Network, lines: list[str], r_ref: float) -> bytes:
     return text.encode("ascii", "replace")  # Touchstone is ASCII; header values are escaped
 
 
+# ASCII of 0000..9999: digits are looked up four at a time
+_QUADS = np.array([list(f"{i:04d}".encode()) for i in range(10_000)], np.uint8)
+
+
 def _digits(v: np.ndarray, count: int) -> np.ndarray:
     """Decimal digits (uint8 ASCII) of non-negative int64 ``v``, ``count`` wide, shape (*v.shape, count)."""
-    powers = 10 ** np.arange(count - 1, -1, -1, dtype=np.int64)
-    return ((v[..., None] // powers) % 10 + ord("0")).astype(np.uint8)
+    groups = -(-count // 4)
+    powers = 10_000 ** np.arange(groups - 1, -1, -1, dtype=np.int64)
+    quads = _QUADS[(v[..., None] // powers) % 10_000]  # (*v.shape, groups, 4)
+    return quads.reshape(v.shape + (4 * groups,))[..., 4 * groups - count:]
 
 
 def _scientific(x: np.ndarray, sig: int) -> np.ndarray:

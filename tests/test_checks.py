@@ -328,3 +328,18 @@ def test_line_window_band_keeps_pad_effects_out_of_the_judgement():
     banded = line_window(ntwk.f, ntwk.s, dict(exp, window_band_hz=[1e9, 20e9]), Limits())
     assert whole.verdict is Verdict.FAIL and whole.at_hz > 20e9
     assert banded.verdict is Verdict.PASS and banded.at_hz <= 20e9
+
+
+def test_closed_form_singular_value_matches_numpy_svd():
+    # numpy's LAPACK SVD is the reference; includes the REFERENCES.md counterexample
+    # [[.6,.6],[.6,.6]] (sigma_max 1.2) and random complex 2x2 and 1x1 stacks.
+    from probelog.checks import largest_singular_value
+
+    rng = np.random.default_rng(7)
+    s = rng.normal(size=(500, 2, 2)) + 1j * rng.normal(size=(500, 2, 2))
+    s[0] = [[0.6, 0.6], [0.6, 0.6]]
+    ref = np.linalg.svd(s, compute_uv=False)[:, 0]
+    np.testing.assert_allclose(largest_singular_value(s), ref, rtol=1e-12)
+    assert largest_singular_value(s)[0] == pytest.approx(1.2, rel=1e-12)
+    one = s[:, :1, :1]
+    np.testing.assert_allclose(largest_singular_value(one), np.abs(one[:, 0, 0]), rtol=1e-15)
