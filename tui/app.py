@@ -8,11 +8,15 @@ Public API::
 
 ``engine_factory`` runs inside a thread worker (it opens instruments). It takes no
 argument, or, when ``intake`` (a SessionRequest of defaults) is given, the
-SessionRequest the operator filled in on the intake screen.
+SessionRequest the operator filled in on the intake screen. When it has a
+``confirm`` keyword, it gets ``ask_operator(prompt) -> bool``, callable from any
+thread (for a manual prober).
 """
 
 from __future__ import annotations
 
+import inspect
+import threading
 from functools import partial
 from typing import Any, Callable, Iterable
 
@@ -77,7 +81,9 @@ class ProbelogApp(App[int]):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="open", description="Opening the session")
     def open_engine(self, request: SessionRequest | None) -> None:
-        engine = self.engine_factory(request) if request is not None else self.engine_factory()
+        args = () if request is None else (request,)
+        kwargs = {"confirm": self.ask_operator} if _takes_confirm(self.engine_factory) else {}
+        engine = self.engine_factory(*args, **kwargs)
         tail = JournalTail(engine.session_dir / "journal.jsonl")
         events = tail.read_new()
         cautions = None
@@ -95,6 +101,22 @@ class ProbelogApp(App[int]):
         self.route()
         if message.cautions:
             self.push_screen(Cautions(message.cautions), self._cautions_read)
+
+    def ask_operator(self, prompt: str) -> bool:
+        """Ask a yes/no question from a worker thread and wait for the answer (a
+        manual prober asks the operator to move the probes this way)."""
+        answered = threading.Event()
+        box: dict[str, bool] = {}
+
+        def show() -> None:
+            def done(yes: bool | None) -> None:
+                box["yes"] = bool(yes)
+                answered.set()
+            self.push_screen(Confirm(prompt), done)
+
+        self.call_from_thread(show)
+        answered.wait()
+        return box["yes"]
 
     def _cautions_read(self, ok: bool | None) -> None:
         if not ok:
@@ -218,6 +240,13 @@ class ProbelogApp(App[int]):
             key = binding.key.split(",")[0]
             yield SystemCommand(f"{binding.description} [{key}]", binding.tooltip or binding.description,
                                 partial(screen.run_action, action))
+
+
+def _takes_confirm(factory: EngineFactory) -> bool:
+    try:
+        return "confirm" in inspect.signature(factory).parameters
+    except (TypeError, ValueError):
+        return False
 
 
 def build_app(engine_factory: EngineFactory, *, show_cautions: bool = True,
