@@ -68,12 +68,12 @@ def run(args: argparse.Namespace) -> int:
         vna, prober = bench.start()
     except OSError as exc:
         raise UsageError(f"cannot listen on 127.0.0.1: {exc.strerror or exc}") from None
-    print(f"vna     {vna}")
-    print(f"prober  {prober}")
-    print(f"wafer   {bench.chip.wafer_id} (lot {bench.chip.lot}, chip {bench.chip.name}), "
-          f"{len(bench.chip.dies())} dies, seed {args.seed}")
-    print("Ctrl-C stops the bench.", flush=True)
-    try:
+    try:  # from the first line printed on, Ctrl-C means "stop the bench"
+        print(f"vna     {vna}")
+        print(f"prober  {prober}")
+        print(f"wafer   {bench.chip.wafer_id} (lot {bench.chip.lot}, chip {bench.chip.name}), "
+              f"{len(bench.chip.dies())} dies, seed {args.seed}")
+        print("Ctrl-C stops the bench.", flush=True)
         threading.Event().wait()
     except KeyboardInterrupt:
         pass
