@@ -24,6 +24,14 @@ NOTE_PRESETS = ("pad scrubbed, marks visible", "debris near the pads", "probe ti
                 "planarity adjusted")
 
 
+REACTIVE_KINDS = ("open", "short", "open-stub", "short-stub")
+
+
+def turns_matter(outcome: Any) -> bool:
+    """Whether the direction of rotation on the Smith chart says something here."""
+    return outcome.step.site_kind in REACTIVE_KINDS
+
+
 def reflections(outcome: Any) -> tuple[list[tuple[str, Any]], Any]:
     """(label, Gamma over frequency) of each port, from the corrected sweep when
     there is one, else the raw; plus the network used."""

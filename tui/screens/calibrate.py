@@ -15,7 +15,7 @@ from textual.widgets import DataTable, Footer, Header, Static
 
 from probelog.verdicts import CheckResult, Verdict, overall
 from tui.messages import CalibrationSolved, ChecksFinished, LandingStarted, SweepMeasured
-from tui.screens.base import BenchScreen, reflections
+from tui.screens.base import BenchScreen, reflections, turns_matter
 from tui.screens.dialogs import AskReason
 from tui.widgets.logbook import Logbook
 from tui.widgets.smith import SmithChart
@@ -63,8 +63,8 @@ class Calibrate(BenchScreen):
         Binding("a", "accept_cal", "accept cal", tooltip="Use this cal set for the landings that follow"),
         Binding("x", "redo_cal", "redo cal", tooltip="Reject this cal set (asks a reason) and measure the standards again"),
         Binding("n", "note", "note", tooltip="Add a note to the journal"),
-        Binding("p", "toggle_polar", "smith/polar", tooltip="Switch the reflection chart between Smith and polar"),
-        Binding("j", "toggle_logbook", "logbook", tooltip="Show or hide the logbook"),
+        Binding("p", "toggle_polar", "smith/polar", show=False, tooltip="Switch the reflection chart between Smith and polar"),
+        Binding("j", "toggle_logbook", "logbook", show=False, tooltip="Show or hide the logbook"),
         Binding("q", "app.close_session", "quit", tooltip="Close the journal and quit"),
     ]
 
@@ -135,7 +135,7 @@ class Calibrate(BenchScreen):
         traces, net = reflections(message.outcome)
         caption = message.outcome.step.standard or message.outcome.step.site
         self.query_one("#sweep", SweepPlot).show_network(net.f, net.s, caption)
-        self.query_one("#smith", SmithChart).set_traces(traces, caption)
+        self.query_one("#smith", SmithChart).set_traces(traces, caption, turns_matter(message.outcome))
 
     def on_checks_finished(self, message: ChecksFinished) -> None:
         o = message.outcome
@@ -153,7 +153,7 @@ class Calibrate(BenchScreen):
         show = stub or (cal.verification[0] if cal.verification else None)
         if show is not None:
             traces, net = reflections(show)
-            self.query_one("#smith", SmithChart).set_traces(traces[:1], f"verify {show.step.site}")
+            self.query_one("#smith", SmithChart).set_traces(traces[:1], f"verify {show.step.site}", turns_matter(show))
             self.query_one("#sweep", SweepPlot).show_network(net.f, net.s, f"verify {show.step.site} (corrected)")
         self.query_one("#calset", Static).update(self._cal_table(cal))
 

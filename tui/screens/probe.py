@@ -13,7 +13,7 @@ from textual.containers import Horizontal, Vertical
 from textual.widgets import Footer, Header
 
 from tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
-from tui.screens.base import BenchScreen, reflections
+from tui.screens.base import BenchScreen, reflections, turns_matter
 from tui.screens.dialogs import AskReason, Confirm
 from tui.widgets.die_map import DieMap
 from tui.widgets.logbook import Logbook
@@ -91,9 +91,9 @@ class Probe(BenchScreen):
         Binding("d", "drift", "drift ref", tooltip="Re-measure the drift reference now"),
         Binding("c", "recalibrate", "recal", tooltip="Go back and calibrate again (asks a reason)"),
         Binding("w", "toggle_map", "die map", tooltip="Show the die map and move its cursor"),
-        Binding("v", "colour_map", "map colour", tooltip="Colour the die map by status or by a metric"),
-        Binding("j", "toggle_logbook", "logbook", tooltip="Show or hide the logbook"),
-        Binding("p", "toggle_polar", "smith/polar", tooltip="Switch the reflection chart between Smith and polar"),
+        Binding("v", "colour_map", "map colour", show=False, tooltip="Colour the die map by status or by a metric"),
+        Binding("j", "toggle_logbook", "logbook", show=False, tooltip="Show or hide the logbook"),
+        Binding("p", "toggle_polar", "smith/polar", show=False, tooltip="Switch the reflection chart between Smith and polar"),
         Binding("q", "app.close_session", "quit", tooltip="Close the journal and quit"),
     ]
 
@@ -216,7 +216,7 @@ class Probe(BenchScreen):
         traces, net = reflections(message.outcome)
         caption = f"{message.outcome.step.site} L{message.outcome.step.landing}"
         self.query_one("#sweep", SweepPlot).show_network(net.f, net.s, caption)
-        self.query_one("#smith", SmithChart).set_traces(traces, caption)
+        self.query_one("#smith", SmithChart).set_traces(traces, caption, turns_matter(message.outcome))
 
     def on_checks_finished(self, message: ChecksFinished) -> None:
         o = message.outcome

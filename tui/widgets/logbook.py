@@ -11,7 +11,7 @@ from typing import Any
 from rich.text import Text
 from textual.widgets import RichLog
 
-VERDICT_MARK = {"pass": "✔ PASS", "warn": "▲ WARN", "fail": "✖ FAIL", "n/a": "· N/A"}
+VERDICT_MARK = {"pass": "✔", "warn": "▲", "fail": "✖", "n/a": "·"}
 VERDICT_STYLE = {"pass": "green", "warn": "yellow", "fail": "bold red", "n/a": "dim"}
 
 
@@ -59,9 +59,13 @@ def describe(event: dict[str, Any]) -> Text:
     kind = event.get("type", "?")
     ts = str(event.get("ts", ""))[11:19]
     seq = event.get("seq")
-    line = Text(f"{'?' if seq is None else seq:>4} {ts} ", style="dim")
-    line.append(f"{kind:<16}", style="bold")
     verdict = p.get("verdict")
+    line = Text(f"{'?' if seq is None else seq:>4} {ts[:5]} ", style="dim")
+    if verdict in VERDICT_MARK:
+        line.append(VERDICT_MARK[verdict] + " ", style=VERDICT_STYLE[verdict])
+    else:
+        line.append("  ")
+    line.append(kind, style="bold")
     if kind == "landing":
         line.append(f" die {_die(p)} {p.get('site')} L{p.get('landing')} ")
     elif kind in ("cal-standard", "cal-verification"):
@@ -85,8 +89,6 @@ def describe(event: dict[str, Any]) -> Text:
         line.append(" completed" if p.get("completed") else " stopped before the end")
     elif kind == "session-opened":
         line.append(f" {p.get('operator', '')} {p.get('wafer', '')} {p.get('plan_name', '')}")
-    if verdict in VERDICT_MARK:
-        line.append(VERDICT_MARK[verdict], style=VERDICT_STYLE[verdict])
     return line
 
 

@@ -21,8 +21,8 @@ from textual.widget import Widget
 # Braille dot bit for (dx, dy) inside a 2 x 4 cell (Unicode braille patterns block).
 _BITS = np.array([[0x01, 0x02, 0x04, 0x40], [0x08, 0x10, 0x20, 0x80]], dtype=np.uint8)
 
-SMITH_R = (0.0, 0.2, 0.5, 1.0, 2.0, 5.0)
-SMITH_X = (0.2, 0.5, 1.0, 2.0, 5.0)
+SMITH_R = (0.0, 0.5, 1.0, 3.0)
+SMITH_X = (0.5, 1.0, 3.0)
 POLAR_RINGS = (0.25, 0.5, 0.75, 1.0)
 
 TRACE_STYLES = ("bold bright_cyan", "bold bright_magenta")
@@ -115,11 +115,16 @@ class SmithChart(Widget):
         super().__init__(*args, **kwargs)
         self._traces: list[tuple[str, np.ndarray]] = []
         self.caption = ""
+        self.judge_rotation = False
 
-    def set_traces(self, traces: list[tuple[str, np.ndarray]], caption: str = "") -> None:
-        """Show ``[(label, gamma), ...]`` (complex arrays over frequency, first two)."""
+    def set_traces(self, traces: list[tuple[str, np.ndarray]], caption: str = "",
+                   judge_rotation: bool = False) -> None:
+        """Show ``[(label, gamma), ...]`` (complex arrays over frequency, first two).
+        ``judge_rotation``: say which way the first trace turns (only meaningful for
+        a reactive one-port such as an open stub)."""
         self._traces = [(lbl, np.asarray(g, dtype=complex)) for lbl, g in traces[:2]]
         self.caption = caption
+        self.judge_rotation = judge_rotation
         self._update_titles()
         self.refresh()
 
@@ -135,10 +140,12 @@ class SmithChart(Widget):
 
     def _update_titles(self) -> None:
         self.border_title = f"{self.mode} · {self.caption}" if self.caption else self.mode
-        if self._traces:
+        if self._traces and self.judge_rotation:
             turn = rotation_sense(self._traces[0][1])
             sense = "clockwise ↻" if turn < 0 else "counter-clockwise ↺"
-            self.border_subtitle = f"{self._traces[0][0]} turns {sense} · ◦ start ● stop"
+            self.border_subtitle = f"{self._traces[0][0]} turns {sense}"
+        elif self._traces:
+            self.border_subtitle = "◦ start ● stop"
         else:
             self.border_subtitle = ""
 

@@ -53,19 +53,21 @@ _STYLES = {Verdict.PASS: "bold green", Verdict.WARN: "bold yellow",
            Verdict.FAIL: "bold reverse red", Verdict.NA: "dim"}
 
 
-def checks_table(checks: Iterable[CheckResult]) -> Group:
+def checks_table(checks: Iterable[CheckResult], wide: bool = True) -> Group:
     """One row per check (verdict word, name, figure, limit, where), then the
     sentence of every check that did not pass, wrapped, so the reason reads in full."""
     checks = list(checks)
     table = Table(box=None, expand=True, pad_edge=False, show_edge=False)
     table.add_column("verdict", no_wrap=True, min_width=6)
-    table.add_column("check", no_wrap=True, ratio=1, overflow="ellipsis")
+    table.add_column("check", no_wrap=True, overflow="ellipsis")
     table.add_column("figure", justify="right", no_wrap=True)
     table.add_column("limit", justify="right", no_wrap=True)
-    table.add_column("at", justify="right", no_wrap=True)
+    if wide:  # where the figure is worst; dropped on narrow terminals
+        table.add_column("at", justify="right", no_wrap=True)
     for c in checks:
-        table.add_row(Text(verdict_word(c.verdict), style=_STYLES[c.verdict]), c.name,
-                      format_figure(c.value, c.unit), format_figure(c.limit, c.unit), format_ghz(c.at_hz))
+        cells = [Text(verdict_word(c.verdict), style=_STYLES[c.verdict]), c.name,
+                 format_figure(c.value, c.unit), format_figure(c.limit, c.unit)]
+        table.add_row(*cells, *([format_ghz(c.at_hz)] if wide else []))
     why = [Text.assemble((f"{_LOOK[c.verdict][1]} {c.name}: ", "bold"), c.message)
            for c in checks if c.verdict in (Verdict.FAIL, Verdict.WARN) and c.message]
     return Group(table, *why)
@@ -99,7 +101,7 @@ class VerdictBoard(Vertical):
     def show_checks(self, checks: list[CheckResult], caption: str,
                     verdict: Verdict | None = None) -> None:
         """Show a finished set of checks; the overall verdict is the worst one."""
-        self.query_one("#checks", Static).update(checks_table(checks))
+        self.query_one("#checks", Static).update(checks_table(checks, wide=self.size.width >= 56))
         self.status = caption
         self.verdict = verdict if verdict is not None else overall(checks)
         self.mutate_reactive(VerdictBoard.verdict)
