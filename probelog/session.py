@@ -190,6 +190,14 @@ class InstrumentFailed(EngineEvent):
 
 
 @dataclass(frozen=True, kw_only=True)
+class JumpedToDie(EngineEvent):
+    """``goto(die)`` moved the walk: the next site step is on ``die``."""
+
+    die: Die
+    reason: str
+
+
+@dataclass(frozen=True, kw_only=True)
 class SessionClosed(EngineEvent):
     completed: bool
 
@@ -252,6 +260,7 @@ class Engine:
         self._ref_wanted = False  # a reference is taken right after a cal is accepted
         self._auto_recals = 0
         self._sequence = [(die, site) for die in plan.dies_in_order() for site in plan.sequence_sites]
+        self._walk_from = 0  # index into _sequence where the walk starts; goto() moves it
         if _replay is None:
             self._open_session()
             if self._phase is Phase.CALIBRATING:
@@ -336,6 +345,11 @@ class Engine:
         return self._last_outcome
 
     @property
+    def last_standard(self) -> str | None:
+        """Role of the standard measured last in this calibration (what reland() re-lands)."""
+        return self._last_standard if self._phase is Phase.CALIBRATING else None
+
+    @property
     def touchdowns(self) -> dict[str, int]:
         return dict(self._touchdowns)
 
@@ -387,7 +401,9 @@ class Engine:
             die = self._drift_die()
             return Step(StepKind.DRIFT, die, drift_site, self._site(drift_site).kind,
                         self._landings.get((die, drift_site), 0) + 1, 0, 1)
-        for i, (die, site) in enumerate(self._sequence):
+        n = len(self._sequence)
+        for i in (k % n for k in range(self._walk_from, self._walk_from + n)):
+            die, site = self._sequence[i]
             if (die, site.name) not in self._finished:
                 return Step(StepKind.SITE, die, site.name, site.kind,
                             self._landings.get((die, site.name), 0) + 1, i, len(self._sequence))
@@ -485,6 +501,31 @@ class Engine:
     def give_up(self, reason: str) -> None:
         """Record the site as failed and go on."""
         self._decide("give-up", _need_reason(reason, "give up on a site"))
+
+    def goto(self, die: Die, reason: str = "") -> None:
+        """Make the first unfinished site of ``die`` (in sequence order) the next
+        site step; after it the walk goes on in the plan's order (wrapping round
+        to the sites before it), skipping what is finished. PROBING only; a due
+        drift re-measure still comes first. Journals ``goto``."""
+        with self._busy():
+            self._require_phase(Phase.PROBING)
+            die = (int(die[0]), int(die[1]))
+            start = self._die_start(die)
+            if not any(d == die and (d, s.name) not in self._finished for d, s in self._sequence):
+                raise EngineError(f"die {die[0]},{die[1]}: every site is already decided; nothing left to land on")
+            payload = {"die": _die_json(die)}
+            if (reason or "").strip():
+                payload["reason"] = reason.strip()
+            ev = self._append("goto", payload)
+            self._walk_from = start
+            self._emit(JumpedToDie(seq=ev.seq, die=die, reason=payload.get("reason", "")))
+
+    def _die_start(self, die: Die) -> int:
+        """Index of the die's first site in the sequence; EngineError if not planned."""
+        for i, (d, _) in enumerate(self._sequence):
+            if d == die:
+                return i
+        raise EngineError(f"plan {self.plan.name!r}: die {die[0]},{die[1]} is not in the plan's die list")
 
     def note(self, text: str) -> None:
         with self._busy():
@@ -1134,6 +1175,8 @@ class Engine:
                 if p["action"] != "reland":
                     self._finished[(tuple(p["die"]), p["site"])] = p["action"]
                 phase = Phase.PROBING
+            elif t == "goto":
+                self._walk_from = self._die_start(tuple(p["die"]))
             elif t == "instrument-error":
                 self._touchdowns.update(p.get("touchdowns") or {})
         # An undecided landing is measured again: after a crash the tips may
