@@ -59,6 +59,7 @@ class Calibrate(BenchScreen):
     CSS_PATH = "calibrate.tcss"
     BINDINGS = [
         Binding("space,m", "measure", "land std", tooltip="Land on the next standard and sweep it"),
+        Binding("r", "reland", "re-land std", tooltip="Land on the standard just measured again (the first landing stays on record)"),
         Binding("k", "solve", "solve cal", tooltip="Solve the cal set, measure the verification sites, compare algorithms"),
         Binding("a", "accept_cal", "accept cal", tooltip="Use this cal set for the landings that follow"),
         Binding("x", "redo_cal", "redo cal", tooltip="Reject this cal set (asks a reason) and measure the standards again"),
@@ -99,8 +100,10 @@ class Calibrate(BenchScreen):
 
     def check_action(self, action: str, parameters: tuple) -> bool | None:
         phase = kind_name(self.engine.phase)
-        if action in ("measure", "solve", "accept_cal", "redo_cal", "note") and self.busy:
+        if action in ("measure", "reland", "solve", "accept_cal", "redo_cal", "note") and self.busy:
             return None
+        if action == "reland":
+            return True if phase == "CALIBRATING" and getattr(self.engine, "last_standard", None) else None
         if action == "measure":
             return True if phase == "CALIBRATING" and self.engine.next_step is not None else None
         if action == "solve":
@@ -111,6 +114,9 @@ class Calibrate(BenchScreen):
 
     def action_measure(self) -> None:
         self.measure_next()
+
+    def action_reland(self) -> None:
+        self.measure_next("reland")
 
     def action_solve(self) -> None:
         self.query_one("#board", VerdictBoard).show_busy("solving the cal set, landing on the verification sites…")
@@ -197,9 +203,14 @@ class Calibrate(BenchScreen):
         engine = self.engine
         phase = kind_name(engine.phase)
         nxt = engine.next_step
+        last = getattr(engine, "last_standard", None) if phase == "CALIBRATING" else None
+        last_failed = last is not None and any(
+            s.name == last and s.verdict is not None and kind_name(s.verdict) == "FAIL" for s in engine.cal_standards)
         if phase == "CALIBRATING" and nxt is not None:
             here = f"calibrating at the tips · standard {nxt.index + 1} of {nxt.total}"
             next_ = f"land on {describe_step(nxt)}   [space]"
+            if last_failed:
+                next_ = f"the {last} failed: re-land it [r], or go on [space]"
         elif phase == "CALIBRATING":
             here, next_ = "all standards measured", "solve the cal set and verify it   [k]"
         else:
