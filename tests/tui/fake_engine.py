@@ -126,6 +126,13 @@ class NoteAdded:
 
 
 @dataclass(frozen=True)
+class JumpedToDie:
+    seq: int
+    die: tuple[int, int]
+    reason: str
+
+
+@dataclass(frozen=True)
 class SessionClosed:
     seq: int
     completed: bool
@@ -231,6 +238,7 @@ class FakeEngine:
         self._touch = {p: 0 for p in PROBES}
         self._last: LandingOutcome | None = None
         self._drift_due = False
+        self._walk_from = 0  # index into the site sequence; goto() moves it
         self.calls: list[str] = []
         if _resume:
             self._replay(self.journal.events())
@@ -256,6 +264,8 @@ class FakeEngine:
                 self._touch = dict(p["touchdowns"])
             elif t == "decision" and p["action"] != "reland":
                 self._finished[(tuple(p["die"]), p["site"])] = p["action"]
+            elif t == "goto":
+                self._walk_from = DIES.index(tuple(p["die"])) * len(SITES)
         if self._phase is Phase.PROBING and len(self._finished) == len(DIES) * len(SITES):
             self._phase = Phase.DONE
         self.journal.append("recovered", {"torn_line": None, "adopted": [], "message": "reopened"})
@@ -326,7 +336,8 @@ class FakeEngine:
         if self._drift_due:
             return Step(StepKind.DRIFT, CAL_DIE, "line-a", "line", self._landings.get((CAL_DIE, "line-a"), 0) + 1, 0, 1)
         seq = [(d, s, k) for d in DIES for s, k in SITES]
-        for i, (d, s, k) in enumerate(seq):
+        for i in (j % len(seq) for j in range(self._walk_from, self._walk_from + len(seq))):
+            d, s, k = seq[i]
             if (d, s) not in self._finished:
                 return Step(StepKind.SITE, d, s, k, self._landings.get((d, s), 0) + 1, i, len(seq))
         return None
@@ -465,6 +476,22 @@ class FakeEngine:
             seq = self.journal.append("note", {"text": text, "die": list(pos.die) if pos else None,
                                                "site": pos.site if pos else None})
             self._emit(NoteAdded(seq, text))
+
+    def goto(self, die: tuple[int, int], reason: str = "") -> None:
+        """docs/engine.md: PROBING only; the die must be planned and have a site left."""
+        with self._lock:
+            self.calls.append("goto")
+            die = tuple(die)
+            if self._phase is not Phase.PROBING:
+                raise RuntimeError(f"cannot go to a die in phase {self._phase.value}")
+            if die not in DIES:
+                raise RuntimeError(f"die {die[0]},{die[1]} is not in the plan")
+            if all((die, s) in self._finished for s, _ in SITES):
+                raise RuntimeError(f"die {die[0]},{die[1]}: nothing left to land on")
+            payload = {"die": list(die), **({"reason": reason} if reason else {})}
+            seq = self.journal.append("goto", payload)
+            self._walk_from = DIES.index(die) * len(SITES)
+            self._emit(JumpedToDie(seq, die, reason))
 
     def request_drift(self) -> None:
         self._drift_due = True

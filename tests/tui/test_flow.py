@@ -228,3 +228,42 @@ def test_probe_screen_snapshot_text(tmp_path, size):
             await quit_session(pilot)
 
     run(go())
+
+
+def test_enter_on_the_die_map_goes_to_that_die_after_asking(tmp_path):
+    """w focuses the map, arrows move its cursor, enter asks (n backs out, y goes);
+    the next landing is then on that die, and the jump is in the journal."""
+    session = tmp_path / "s"
+
+    async def go():
+        app = build_app(lambda: FakeEngine(session), show_cautions=False)
+        async with app.run_test(size=(120, 40)) as pilot:
+            await settle(pilot, "open")
+            await calibrate(pilot)
+            await press(pilot, "a")
+            assert isinstance(app.screen, Probe)
+            assert app.engine.next_step.die == (0, 0)
+            await press(pilot, "w", "down", "enter")  # cursor from 0,0 down to 0,1
+            assert isinstance(app.screen, Confirm)
+            assert "Land on die 0,1 next?" in screen_text(app)
+            await press(pilot, "n")
+            assert app.engine.next_step.die == (0, 0)  # backing out changes nothing
+            await press(pilot, "enter", "y")
+            assert isinstance(app.screen, Probe)
+            assert "next: die 0,1 · line-a" in board_text(app)
+            await press(pilot, "space")
+            assert "die 0,1 · line-a (line) · landing 1" in board_text(app)
+            # while a landing waits for its decision the map refuses, without a dialog
+            await press(pilot, "enter")
+            assert isinstance(app.screen, Probe) and app.engine.calls.count("goto") == 1
+            await press(pilot, "w", "a")  # map loses focus; accept
+            # h shows the die's history instead of jumping
+            await press(pilot, "w", "h")
+            assert isinstance(app.screen, Probe)
+            await quit_session(pilot)
+
+    run(go())
+    events = journal(session)
+    assert [e["payload"] for e in events if e["type"] == "goto"] == [{"die": [0, 1]}]
+    landed = [(tuple(e["payload"]["die"]), e["payload"]["site"]) for e in events if e["type"] == "landing"]
+    assert landed == [((0, 1), "line-a")]

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from textual import events
+from textual import events, work
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
@@ -194,6 +194,34 @@ class Probe(BenchScreen):
         self.notify(f"die map coloured by {choice}", timeout=2)
 
     def on_die_map_die_chosen(self, message: DieMap.DieChosen) -> None:
+        """Enter on a die: land there next, after a y/n confirmation."""
+        die = message.die
+        status = self.engine.wafer_status.get(die)
+        phase = kind_name(self.engine.phase)
+        refusal = ("wait: the instrument is busy" if self.busy else
+                   "decide on this landing first (accept, re-land or skip)" if phase == "DECIDING" else
+                   "calibrate first" if phase in ("CALIBRATING", "VERIFYING") else
+                   "every site of the plan is decided" if phase == "DONE" else
+                   f"die {die[0]},{die[1]} is not in the plan" if status is None else
+                   f"die {die[0]},{die[1]} is {status}: nothing left to land on"
+                   if status in ("done", "failed", "skipped") else None)
+        if refusal:
+            self.notify(refusal, title=f"cannot go to die {die[0]},{die[1]}", severity="warning", timeout=4)
+            return
+
+        def answered(yes: bool | None) -> None:
+            if yes:
+                self.goto_die(die)
+        self.app.push_screen(Confirm(f"Land on die {die[0]},{die[1]} next?\n"
+                                     "Its first undecided site comes next; the plan's order goes on from there."),
+                             answered)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="bench", description="Going to a die")
+    def goto_die(self, die: tuple[int, int]) -> None:
+        self.engine.goto(die)
+        self.post_message(DecisionRecorded("goto"))
+
+    def on_die_map_history_wanted(self, message: DieMap.HistoryWanted) -> None:
         die = message.die
         lines = die_history(list(self.app.journal_events), die)
         status = self.engine.wafer_status.get(die, "?")
@@ -226,6 +254,9 @@ class Probe(BenchScreen):
     def on_decision_recorded(self, message: DecisionRecorded) -> None:
         if message.action in ("accept", "skip"):
             self.query_one("#board", VerdictBoard).show_busy(f"{message.action} recorded · next: space")
+        elif message.action == "goto":
+            self.query_one("#board", VerdictBoard).show_busy(
+                f"next: {describe_step(self.engine.next_step)} · space to land")
 
     def _show_outcome(self, outcome: Any) -> None:
         self.on_sweep_measured(SweepMeasured(outcome))

@@ -1,5 +1,6 @@
 """The die map: every die of the wafer, coloured and marked by status or shaded by
-a chosen metric; arrow keys move a cursor, enter picks a die.
+a chosen metric; arrow keys move a cursor, enter asks to land there next, h shows
+what the journal holds for the die under the cursor.
 
 Status marks (never colour alone): ``·`` to do, ``◐`` partly done, ``✔`` done,
 ``✖`` failed, ``↷`` skipped; the die under the probes is framed ``[ ]``.
@@ -45,11 +46,19 @@ class DieMap(Widget, can_focus=True):
         Binding("down", "move(0,1)", "down", show=False),
         Binding("left", "move(-1,0)", "left", show=False),
         Binding("right", "move(1,0)", "right", show=False),
-        Binding("enter", "choose", "show die", tooltip="Show what the journal holds for this die"),
+        Binding("enter", "choose", "go to die", tooltip="Land on this die next (asks first)"),
+        Binding("h", "history", "die history", tooltip="Show what the journal holds for this die"),
     ]
 
     class DieChosen(Message):
-        """The operator picked a die on the map."""
+        """The operator picked a die on the map to land on next."""
+
+        def __init__(self, die: Die) -> None:
+            super().__init__()
+            self.die = die
+
+    class HistoryWanted(Message):
+        """The operator asked what the journal holds for a die."""
 
         def __init__(self, die: Die) -> None:
             super().__init__()
@@ -158,3 +167,7 @@ class DieMap(Widget, can_focus=True):
     def action_choose(self) -> None:
         if self.cursor is not None:
             self.post_message(self.DieChosen(self.cursor))
+
+    def action_history(self) -> None:
+        if self.cursor is not None:
+            self.post_message(self.HistoryWanted(self.cursor))
