@@ -249,7 +249,12 @@ class Journal:
         self.path = root / JOURNAL_NAME
         self._lock_fd = lock_fd
         self._fd: int | None = None
-        self._events: list[Event] = []
+        # Only the last event stays in memory, so a long session's journal costs
+        # nothing per event; events() reads the file (or hands over what open()
+        # parsed, once).
+        self._count = 0
+        self._last: Event | None = None
+        self._loaded: list[Event] | None = None
         self._size = 0
         self._broken: str | None = None
         self._mutex = threading.Lock()
@@ -341,11 +346,26 @@ class Journal:
     # ------------------------------------------------------------ reading
 
     def events(self) -> list[Event]:
-        return list(self._events)
+        """Every event, in order. Right after :meth:`open` this hands over the
+        events parsed there (once); otherwise it reads the file back."""
+        with self._mutex:
+            loaded, self._loaded = self._loaded, None
+            if loaded is not None and len(loaded) == self._count:
+                return loaded
+            size = self._size
+        with open(self.path, "rb") as fh:
+            data = fh.read(size)
+        out, prev = [], ZERO_HASH
+        for raw in data.split(b"\n")[:-1]:
+            rec = json.loads(raw)
+            h = hashlib.sha256(raw).hexdigest()
+            out.append(Event(rec["seq"], rec["ts"], rec["type"], rec["payload"], prev, h))
+            prev = h
+        return out
 
     @property
     def last(self) -> Event | None:
-        return self._events[-1] if self._events else None
+        return self._last
 
     def _load_and_recover(self) -> None:
         try:
@@ -355,6 +375,7 @@ class Journal:
         body_end = data.rfind(b"\n") + 1
         lines = data[:body_end].split(b"\n")[:-1]
         prev, offset = ZERO_HASH, 0
+        events: list[Event] = []
         torn_from = body_end if body_end < len(data) else None
         for i, raw in enumerate(lines, start=1):
             rec, why = _parse(raw)
@@ -368,10 +389,13 @@ class Journal:
                 raise JournalError(f"{self.path}, line {i}: {why}; the journal is damaged "
                                    f"and cannot be appended to: run `probelog verify {self.root}`")
             h = hashlib.sha256(raw).hexdigest()
-            self._events.append(Event(rec["seq"], rec["ts"], rec["type"], rec["payload"], prev, h))
+            events.append(Event(rec["seq"], rec["ts"], rec["type"], rec["payload"], prev, h))
             prev = h
             offset += len(raw) + 1
         self._size = offset
+        self._loaded = events
+        self._count = len(events)
+        self._last = events[-1] if events else None
         try:
             self._fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | os.O_CLOEXEC)
         except OSError as exc:
@@ -385,13 +409,13 @@ class Journal:
                 torn_name = self._move_torn_tail(data[torn_from:])
                 os.ftruncate(self._fd, torn_from)
                 os.fsync(self._fd)
-            referenced = {p for ev in self._events for p, _ in _refs(ev.payload)}
+            referenced = {p for ev in self._loaded or () for p, _ in _refs(ev.payload)}
             files, temps = _data_files(self.root)
         except OSError as exc:
             raise JournalError(f"{self.root}: cannot recover the session: {_os_reason(exc)}") from None
         orphans = [p for p in files if p not in referenced]
         # Temporary files stay (nothing is deleted); report each one only once.
-        known = {t for ev in self._events if ev.type == "recovered"
+        known = {t for ev in self._loaded or () if ev.type == "recovered"
                  for t in ev.payload.get("leftover_temp", []) if isinstance(t, str)}
         temps = [t for t in temps if t not in known]
         if torn_name is None and not orphans and not temps:
@@ -434,8 +458,8 @@ class Journal:
             raise JournalError(f"the payload of a {type!r} event must be a dict, got {payload.__class__.__name__}")
         with self._mutex:
             fd = self._usable()
-            seq = len(self._events) + 1
-            prev = self._events[-1].hash if self._events else ZERO_HASH
+            seq = self._count + 1
+            prev = self._last.hash if self._last is not None else ZERO_HASH
             record = {"seq": seq, "ts": _utc_now(), "type": type, "payload": payload, "prev": prev}
             try:
                 line = canonical_json(record)
@@ -456,7 +480,10 @@ class Journal:
             # lists), decoupled from the caller's dict.
             stored = json.loads(line)["payload"]
             event = Event(seq, record["ts"], type, stored, prev, hashlib.sha256(line).hexdigest())
-            self._events.append(event)
+            self._count += 1
+            self._last = event
+            if self._loaded is not None:  # not handed over by events() yet
+                self._loaded.append(event)
             return event
 
     def _undo(self, exc: OSError, step: str, stop: bool = False) -> None:
@@ -466,12 +493,12 @@ class Journal:
             os.fsync(self._fd)  # type: ignore[arg-type]
         except OSError:
             stop = True  # the torn line stays; reopening moves it aside
-        where = f"{self.path}: event {len(self._events) + 1} was not written ({step} failed: {_os_reason(exc)})"
+        where = f"{self.path}: event {self._count + 1} was not written ({step} failed: {_os_reason(exc)})"
         if stop:
             self._broken = "stopped after a failed write; reopen the session to continue"
-            raise JournalError(f"{where}; the journal is intact up to event {len(self._events)}; "
+            raise JournalError(f"{where}; the journal is intact up to event {self._count}; "
                                "reopen the session once the disk is fixed") from None
-        raise JournalError(f"{where}; the journal is intact up to event {len(self._events)}; "
+        raise JournalError(f"{where}; the journal is intact up to event {self._count}; "
                            "free space or fix the folder and retry") from None
 
     def write_file(self, relpath: str, data: bytes) -> FileRef:
