@@ -17,6 +17,7 @@ with ``s`` shaped (n_freq, n_ports, n_ports).
 from __future__ import annotations
 
 import dataclasses
+import os
 import threading
 from dataclasses import dataclass, field
 from enum import Enum
@@ -766,7 +767,8 @@ class Engine:
                         len(self._verify_sites()))
             raw = self._land(die, site_name)
             cor = calset.apply(raw)
-            files = self._write_pair(f"data/cal/{self._cal_id}/{site_name}-L{landing}", raw, cor, step)
+            # own folder: a re-landed standard on the same site is {site}-L{n} too
+            files = self._write_pair(f"data/cal/{self._cal_id}/verify/{site_name}-L{landing}", raw, cor, step)
             self._landings[(die, site_name)] = landing
             measured.append((step, raw, cor, files))
         stub_site = kit.verification.get("open_stub_site") if isinstance(kit.verification, dict) else None
@@ -880,6 +882,7 @@ class Engine:
     def _write_pair(self, base: str, raw: skrf.Network, cor: skrf.Network | None, step: Step) -> dict:
         """Raw (and corrected) sweep files of one landing, stored together."""
         nets = {"raw": raw} if cor is None else {"raw": raw, "corrected": cor}
+        base = self._unused(base, [f"-{'raw' if what == 'raw' else 'cor'}.s{n.nports}p" for what, n in nets.items()])
         items = [(f"{base}-{'raw' if what == 'raw' else 'cor'}.s{n.nports}p",
                   _touchstone_bytes(n, self._header(n, step, what))) for what, n in nets.items()]
         refs = self.journal.write_files(items)
@@ -887,7 +890,7 @@ class Engine:
 
     def _write_net(self, stem: str, ntwk: skrf.Network, step: Step, what: str) -> dict:
         data = _touchstone_bytes(ntwk, self._header(ntwk, step, what))
-        ref = self.journal.write_file(f"{stem}.s{ntwk.nports}p", data)
+        ref = self.journal.write_file(f"{self._unused(stem, [f'.s{ntwk.nports}p'])}.s{ntwk.nports}p", data)
         return {"path": str(ref.path), "sha256": ref.sha256}
 
     def _header(self, ntwk: skrf.Network, step: Step, what: str) -> dict:
@@ -906,7 +909,18 @@ class Engine:
 
     def _save_calset(self, calset, cal_dir: str) -> list[dict]:
         """FileRef dicts of the saved cal set, calset.json first."""
-        return [{"path": str(r.path), "sha256": r.sha256} for r in _save_calset(calset, self.journal, cal_dir)]
+        folder = self._unused(f"{cal_dir}/calset", [""])
+        return [{"path": str(r.path), "sha256": r.sha256} for r in _save_calset(calset, self.journal, folder)]
+
+    def _unused(self, stem: str, suffixes: list[str]) -> str:
+        """``stem``, or ``stem-r2``, ``-r3``... when a file of that name exists: one a
+        crash left behind (written, its event lost, adopted on resume). Data files
+        are never overwritten, and the redone step names its own files."""
+        k, name = 1, stem
+        while any(os.path.lexists(self.session_dir / f"{name}{sfx}") for sfx in suffixes):
+            k += 1
+            name = f"{stem}-r{k}"
+        return name
 
     def _standard_networks_by_role(self) -> dict[str, skrf.Network]:
         """Raw standards measured so far, keyed by role (open, short, ..., line:<name>)."""
@@ -937,7 +951,8 @@ class Engine:
             result = cal.agreement(calset, other, list(measured.values()))
         except Exception:  # the second algorithm is a cross-check, not a requirement
             return None
-        ref = self.journal.write_file(f"{cal_dir}/agreement-{method}-{other_method}.csv",
+        stem = self._unused(f"{cal_dir}/agreement-{method}-{other_method}", [".csv"])
+        ref = self.journal.write_file(f"{stem}.csv",
                                       _agreement_csv(result))
         payload = {"cal_id": self._cal_id, "method": method, "other_method": other_method,
                    "worst": float(result.worst), "at_hz": float(result.at_hz),
@@ -1258,14 +1273,15 @@ def _plan_from_opened(payload: dict, session_dir: Path):
     return load_plan_text(text, source, base_dir=base)
 
 
-def _save_calset(calset, journal, cal_dir: str) -> list:
+def _save_calset(calset, journal, folder: str) -> list:
     """CalSet.save writes plain files: save to a scratch folder, then store each
-    file through the journal (atomic, hashed). Returns FileRefs, calset.json first."""
+    file through the journal (atomic, hashed) in ``folder``. Returns FileRefs,
+    calset.json first."""
     import tempfile
 
     with tempfile.TemporaryDirectory() as tmp:
         paths = sorted(calset.save(tmp), key=lambda p: p.name != "calset.json")
-        return [journal.write_file(f"{cal_dir}/calset/{p.name}", p.read_bytes()) for p in paths]
+        return [journal.write_file(f"{folder}/{p.name}", p.read_bytes()) for p in paths]
 
 
 def _load_calset(path: Path):
