@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 
 HELP = "run a probing session from a plan (or --resume one), in the UI or --headless"
@@ -31,9 +32,9 @@ def run(args: argparse.Namespace) -> int:
     from probelog.plan import PlanError, load_plan
     from probelog.session import Engine, EngineError
 
-    if args.resume:
-        from probelog.journal import JournalError
+    from probelog.journal import JournalError
 
+    if args.resume:
         plan = None
         probe_ids = _probe_ids_of(args.resume)
     else:
@@ -70,17 +71,42 @@ def run(args: argparse.Namespace) -> int:
 
     try:
         engine = engine_factory()
-    except (EngineError, JournalError if args.resume else EngineError) as exc:
+    except (EngineError, JournalError) as exc:
         raise UsageError(str(exc)) from None
+    if os.environ.get(TRACE_ACKS_ENV) == "1":
+        _trace_acks(engine)
     try:
         summary = run_headless(engine, retries=args.retries, out=sys.stdout)
     except EngineError as exc:  # e.g. a cal standard that cannot be measured
         print(f"probelog run: stopped: {exc}; resume with --resume {engine.session_dir}", file=sys.stderr)
         engine.close(False)
         return 1
+    except JournalError as exc:  # e.g. a full disk: what was journaled stays, the rest is redone
+        print(f"probelog run: stopped: {exc}; resume with --resume {engine.session_dir}", file=sys.stderr)
+        try:
+            engine.close(False)
+        except JournalError:  # still no space for session-closed; resume does without it
+            pass
+        return 1
     finally:
         engine.bench.close()
     return summary.exit_code
+
+
+# Opt-in, for the crash trials (tests/test_crash_resume.py): with this set to 1
+# a headless run writes "ack SEQ SHA256" to stderr for the journal's last event
+# each time the engine notifies, which it does only after that event's fsync.
+TRACE_ACKS_ENV = "PROBELOG_TRACE_ACKS"
+
+
+def _trace_acks(engine) -> None:
+    def ack(_event=None) -> None:
+        last = engine.journal.last
+        if last is not None:
+            print(f"ack {last.seq} {last.hash}", file=sys.stderr, flush=True)
+
+    ack()  # session-opened (or the recovery note) was fsynced before the engine existed
+    engine.subscribe(ack)
 
 
 def _probe_ids_of(session: str) -> tuple[str, ...]:
