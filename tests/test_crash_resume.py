@@ -242,6 +242,7 @@ def test_kill_nine_during_headless_runs_then_resume_finishes(tmp_path):
         _check_acked_present(_acks(res.stderr), after, f"{what} resume")
         _check_finished(folder, plan_sites, what)
         outcomes["killed and resumed"] += 1
+    print("crash trials:", dict(outcomes))
     # the kills did fall mid-run, not only before or after it
     assert outcomes["killed and resumed"] >= TRIALS // 2, dict(outcomes)
 
