@@ -202,9 +202,21 @@ def _refs(obj: Any) -> Iterator[tuple[str, str]]:
             p, h = o.get("path"), o.get("sha256")
             if isinstance(p, str) and isinstance(h, str):
                 yield p, h
-            stack.extend(o.values())
+            # only containers can hold a file reference: skip the numbers of
+            # metrics and check figures (most of a landing's payload)
+            stack.extend(v for v in o.values() if isinstance(v, (dict, list)))
         elif isinstance(o, list):
-            stack.extend(o)
+            stack.extend(v for v in o if isinstance(v, (dict, list)))
+
+
+# A file reference as canonical_json writes FileRef.to_json(): sorted keys, compact.
+_REF_RE = re.compile(rb'"path":("(?:[^"\\]|\\.)*"),"sha256":"[0-9a-f]{64}"')
+
+
+def _referenced_paths(journal_bytes: bytes) -> set[str]:
+    """Paths of every file reference in the journal's lines: a regex over the raw
+    bytes, ~20x faster than walking every parsed payload on a long session."""
+    return {json.loads(m) for m in _REF_RE.findall(journal_bytes)}
 
 
 def _safe_rel(path: str) -> PurePosixPath | None:
@@ -409,7 +421,7 @@ class Journal:
                 torn_name = self._move_torn_tail(data[torn_from:])
                 os.ftruncate(self._fd, torn_from)
                 os.fsync(self._fd)
-            referenced = {p for ev in self._loaded or () for p, _ in _refs(ev.payload)}
+            referenced = _referenced_paths(data[:self._size])
             files, temps = _data_files(self.root)
         except OSError as exc:
             raise JournalError(f"{self.root}: cannot recover the session: {_os_reason(exc)}") from None

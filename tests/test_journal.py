@@ -499,3 +499,22 @@ def test_cli_verify_anchor(tmp_path, capsys):
     capsys.readouterr()
     assert cli(["verify", str(folder), "--anchor", "five"]) == 2
     assert "--anchor" in capsys.readouterr().err
+
+
+def test_fast_reference_scan_agrees_with_the_payload_walk(tmp_path):
+    # The recovery scan reads file references straight from the journal bytes;
+    # the reference is the generic walk over every parsed payload.
+    from probelog.journal import _referenced_paths, _refs
+
+    j = Journal.create(tmp_path, "refs")
+    for i in range(30):
+        refs = j.write_files([(f"data/d{i}/L1-raw.s2p", b"x" * i), (f"data/d{i}/L1-cor.s2p", b"y")])
+        j.append("landing", {"raw": refs[0].to_json(), "corrected": refs[1].to_json(),
+                             "checks": [{"name": "contact", "value": 1.0}], "metrics": {"f_hz": [1.0, 2.0]},
+                             "nested": [{"files": [refs[1].to_json()]}], "note": '"path":"data/fake"'})
+    j.close()
+    data = (tmp_path / "refs" / "journal.jsonl").read_bytes()
+    walked = set()
+    for line in data.splitlines():
+        walked |= {p for p, _ in _refs(json.loads(line)["payload"])}
+    assert _referenced_paths(data) == walked and len(walked) == 60
