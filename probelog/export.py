@@ -147,7 +147,7 @@ def compute_missing_metrics(index: SessionIndex, networks: dict[int, Any]) -> in
             continue
         try:
             m = line_metrics(ntwk, row["length_um"] * 1e-6)
-            flat = flatten_metrics(metrics_at(m, default_frequencies(ntwk.f)))
+            flat = flatten_metrics(metrics_at(m, default_frequencies(ntwk.f, prefer_round=True)))
         except (ValueError, FloatingPointError, np.linalg.LinAlgError):
             continue  # a sweep that is no line (e.g. kept despite a lifted tip) stays empty
         row.update(flat)

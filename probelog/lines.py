@@ -264,6 +264,15 @@ def to_json(metrics: LineMetrics) -> dict[str, list[float | None]]:
     return {k: _jsonable(v) for k, v in _columns(metrics, slice(None)).items()}
 
 
-def default_frequencies(f_hz: np.ndarray, count: int = 5) -> np.ndarray:
-    """``count`` frequencies spread evenly from the first to the last point (Hz)."""
-    return np.linspace(f_hz[0], f_hz[-1], count)
+# Round frequencies engineers quote line figures at (Hz); common practice, no source.
+ROUND_HZ = np.array([1, 5, 10, 20, 40, 67, 110, 170, 220, 325, 500]) * 1e9
+
+
+def default_frequencies(f_hz: np.ndarray, count: int = 5, prefer_round: bool = False) -> np.ndarray:
+    """Where to report line figures (Hz): ``count`` frequencies spread evenly from
+    the first to the last point; with ``prefer_round``, the round frequencies
+    inside the sweep (``ROUND_HZ``) when at least ``count`` of them fall there
+    (the journal and the bundle use these, so sessions compare column by column)."""
+    f0, f1 = float(f_hz[0]), float(f_hz[-1])
+    inside = ROUND_HZ[(ROUND_HZ >= f0) & (ROUND_HZ <= f1)]
+    return inside if prefer_round and inside.size >= count else np.linspace(f0, f1, count)

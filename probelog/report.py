@@ -420,6 +420,13 @@ def _line_trends(inp: ReportInputs) -> str:
         return head + "<p class='none'>No line metrics in this session (none journaled, none computed).</p>"
     ordered = sorted(freqs, key=lambda f: float(f[:-3]))
     fsel = max(ordered, key=lambda f: (freqs[f], -abs(ordered.index(f) - len(ordered) // 2)))
+    # Single-line figures mean something only inside each site's window band (away
+    # from half-wavelengths): take the highest frequency inside every band declared.
+    tops = [float(band[1]) for r in lines
+            if isinstance(band := idx.sites.get(r.get("site"), {}).get("window_band_hz"), list) and len(band) == 2]
+    inside = [f for f in ordered if tops and float(f[:-3]) * 1e9 <= min(tops) * (1 + 1e-9)]
+    if inside:
+        fsel = inside[-1]
     panels = [(k, by_kind[k][fsel][0]) for k in ("z0", "loss", "eps_eff", "q") if by_kind.get(k, {}).get(fsel)]
     fig = Figure(figsize=(12, 3.6 * math.ceil(len(panels) / 2)))
     families = sorted({(r["line_type"], r.get("metal") or "") for r in lines})

@@ -875,7 +875,7 @@ class Engine:
         try:
             with np.errstate(all="ignore"):  # a lifted tip gives singular ABCD; checks judge it
                 m = lines.line_metrics(ntwk, float(length_um) * 1e-6)
-                return lines.metrics_at(m, lines.default_frequencies(m.f_hz))
+                return lines.metrics_at(m, lines.default_frequencies(m.f_hz, prefer_round=True))
         except (ValueError, FloatingPointError, ZeroDivisionError):
             return None  # metrics are information; the line-window check judges
 

@@ -132,3 +132,14 @@ def test_json_shapes_and_nearest_points(freq):
     only_gamma = metrics_at(metrics_from_gamma(m.f_hz, m.gamma), [40e9])
     assert only_gamma["z0_re"] == [None] and only_gamma["c_f_per_m"] == [None]
     assert only_gamma["eps_eff"][0] == pytest.approx(5.75249, abs=1e-5)
+
+
+def test_report_frequencies_are_round_inside_the_sweep():
+    # common practice, no source: line figures are quoted at round frequencies
+    from probelog.lines import default_frequencies
+
+    f = np.linspace(1e9, 110e9, 201)
+    assert list(default_frequencies(f, prefer_round=True) / 1e9) == [1, 5, 10, 20, 40, 67, 110]
+    assert np.allclose(default_frequencies(f), np.linspace(1e9, 110e9, 5))
+    narrow = np.linspace(50e9, 75e9, 101)  # only 67 GHz inside: fall back to an even spread
+    assert np.allclose(default_frequencies(narrow, prefer_round=True), np.linspace(50e9, 75e9, 5))
