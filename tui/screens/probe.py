@@ -241,6 +241,12 @@ class Probe(BenchScreen):
         self._where(doing="▶ moving at separation, contacting, sweeping…")
 
     def on_sweep_measured(self, message: SweepMeasured) -> None:
+        # The verdict matters first: the plots are drawn after the next repaint, so
+        # the board (updated by ChecksFinished, right behind this) is not held up.
+        self.call_after_refresh(self._plot, message.outcome)
+
+    def _plot(self, outcome: Any) -> None:
+        message = SweepMeasured(outcome)
         traces, net = reflections(message.outcome)
         caption = f"{message.outcome.step.site} L{message.outcome.step.landing}"
         self.query_one("#sweep", SweepPlot).show_network(net.f, net.s, caption)

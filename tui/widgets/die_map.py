@@ -76,6 +76,7 @@ class DieMap(Widget, can_focus=True):
     def update_state(self, status: dict[Die, str], current: Die | None,
                      metrics: dict[Die, dict[str, float]] | None = None) -> None:
         """New statuses (die -> todo/partial/done/failed/skipped) and the die under the probes."""
+        resized = set(self.status) != {tuple(d) for d in status}
         self.status = {tuple(d): s for d, s in status.items()}
         self.current = tuple(current) if current is not None else None
         if metrics is not None:
@@ -83,7 +84,7 @@ class DieMap(Widget, can_focus=True):
         if self.cursor is None and self.current is not None:
             self.cursor = self.current
         self._titles()
-        self.refresh(layout=True)
+        self.refresh(layout=resized)  # a new layout only when the set of dies changed
 
     def metric_names(self) -> list[str]:
         return sorted({k for m in self.metrics.values() for k in m})

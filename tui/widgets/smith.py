@@ -116,6 +116,7 @@ class SmithChart(Widget):
         self._traces: list[tuple[str, np.ndarray]] = []
         self.caption = ""
         self.judge_rotation = False
+        self._drawn: tuple[tuple, Text] | None = None  # (key, text): drawn once per sweep and size
 
     def set_traces(self, traces: list[tuple[str, np.ndarray]], caption: str = "",
                    judge_rotation: bool = False) -> None:
@@ -125,6 +126,7 @@ class SmithChart(Widget):
         self._traces = [(lbl, np.asarray(g, dtype=complex)) for lbl, g in traces[:2]]
         self.caption = caption
         self.judge_rotation = judge_rotation
+        self._drawn = None
         self._update_titles()
         self.refresh()
 
@@ -172,10 +174,14 @@ class SmithChart(Widget):
                     chars[cell] = mark
                     style[cell] = "bold bright_white"
         out = []
-        for r in range(canvas.height):
-            line = Text()
-            for c in range(canvas.width):
-                line.append(chars[r, c], style[r, c])
+        for r in range(canvas.height):  # one span per run of equal style, not one per cell
+            line = Text("".join(chars[r]))
+            row = style[r]
+            start = 0
+            for c in range(1, canvas.width + 1):
+                if c == canvas.width or row[c] != row[start]:
+                    line.stylize(row[start], start, c)
+                    start = c
             out.append(line)
         return out
 
@@ -183,4 +189,9 @@ class SmithChart(Widget):
         size = self.content_size
         if size.width < 2 or size.height < 2:
             return Text("")
-        return Text("\n").join(self.render_lines_text(size.width, size.height))
+        # Textual calls render() on every repaint of the screen's layout; the chart
+        # only changes with new traces, the mode or the size.
+        key = (size.width, size.height, self.mode)
+        if self._drawn is None or self._drawn[0] != key:
+            self._drawn = (key, Text("\n").join(self.render_lines_text(size.width, size.height)))
+        return self._drawn[1].copy()
