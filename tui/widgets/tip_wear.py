@@ -39,13 +39,14 @@ class TipWear(Widget):
         self.border_title = "tip wear"
 
     def update_counts(self, counts: dict[str, int], life: int | None = None) -> None:
+        relayout = set(counts) != set(self.counts)
         self.counts = dict(counts)
         if life:
             self.life = int(life)
         states = [wear_state(n, self.life) for n in self.counts.values()]
         self.set_class(any(s != "ok" for s in states), "worn")
         self.border_subtitle = "▲ WEAR: check tips" if any(s != "ok" for s in states) else ""
-        self.refresh(layout=True)
+        self.refresh(layout=relayout)  # the height follows the number of probes only
 
     def get_content_height(self, container, viewport, width) -> int:
         return max(len(self.counts), 1)
@@ -53,7 +54,9 @@ class TipWear(Widget):
     def render(self) -> Text:
         if not self.counts:
             return Text("no touchdowns yet", style="dim")
-        width = max(self.content_size.width - 26, 4)
+        # the full probe id: "GSG100-A17" and "GSG100-A19" must not both read "GSG100-A"
+        name_w = min(max(len(p) for p in self.counts), 16)
+        width = max(self.content_size.width - name_w - 18, 4)
         out = Text(no_wrap=True)
         for i, (probe, n) in enumerate(sorted(self.counts.items())):
             state = wear_state(n, self.life)
@@ -61,7 +64,7 @@ class TipWear(Widget):
             fill = int(round(used * width))
             style = {"ok": "green", "worn": "bold yellow", "spent": "bold red"}[state]
             mark = {"ok": " ", "worn": "▲", "spent": "✖"}[state]
-            out.append(f"{probe[:8]:<8} {n:>7} ", "bold")
+            out.append(f"{probe[:name_w]:<{name_w}} {n:>7} ", "bold")
             out.append("█" * fill, style)
             out.append("░" * (width - fill), "grey35")
             out.append(f" {mark}{used:>5.0%}", style)

@@ -59,7 +59,8 @@ def checks_table(checks: Iterable[CheckResult], wide: bool = True) -> Group:
     checks = list(checks)
     table = Table(box=None, expand=True, pad_edge=False, show_edge=False)
     table.add_column("verdict", no_wrap=True, min_width=6)
-    table.add_column("check", no_wrap=True, overflow="ellipsis")
+    # the check name gives way first: figure and limit are what the operator reads
+    table.add_column("check", no_wrap=True, overflow="ellipsis", ratio=1, min_width=4)
     table.add_column("figure", justify="right", no_wrap=True)
     table.add_column("limit", justify="right", no_wrap=True)
     if wide:  # where the figure is worst; dropped on narrow terminals
