@@ -461,19 +461,20 @@ def line_window(
             below = np.full_like(x, -np.inf)
         i_lo, i_hi = int(np.argmax(below)), int(np.argmax(above))
         if below[i_lo] >= above[i_hi]:
-            cand = (below[i_lo] / size, name, unit, x[i_lo], lo, f_use[i_lo])
+            cand = (below[i_lo] / size, name, unit, x[i_lo], lo, f_use[i_lo], lo, hi)
         else:
-            cand = (above[i_hi] / size, name, unit, x[i_hi], hi, f_use[i_hi])
+            cand = (above[i_hi] / size, name, unit, x[i_hi], hi, f_use[i_hi], lo, hi)
         if best is None or cand[0] > best[0]:
             best = cand
-    margin, name, unit, value, limit, at = best
+    margin, name, unit, value, limit, at, lo, hi = best
     u = f" {unit}" if unit else ""
+    window = f"<= {hi:.4g}{u}" if name == "alpha" else f"{lo:.4g}..{hi:.4g}{u}"
     if margin > 0:
         return _result("line-window", Verdict.FAIL, value, limit, at,
-                       f"{name} = {value:.4g}{u} at {_ghz(at)} is outside the window edge {limit:.4g}{u}: "
+                       f"{name} = {value:.4g}{u} at {_ghz(at)} is outside the window {window}: "
                        "wrong site, damaged line or wrong calibration", unit)
     return _result("line-window", Verdict.PASS, value, limit, at,
-                   f"inside the plan's windows (closest: {name} = {value:.4g}{u} at {_ghz(at)}, edge {limit:.4g}{u})", unit)
+                   f"inside the plan's windows (closest: {name} = {value:.4g}{u} at {_ghz(at)}, window {window})", unit)
 
 
 # ---------------------------------------------------------------- repeatability and drift
