@@ -2,11 +2,14 @@
 
 (a) keypress to verdict: the real engine on the simulated bench (zero sweep time,
     real ScpiVna / ScpiProber over loopback), driven through Textual's Pilot. The
+    simulated bench runs in its own process (``python -m tui simbench``), as real
+    instruments do: in-process, its replies would queue for the UI's GIL. The
     clock starts when the measure key is pressed and stops when the message that
     follows the verdict board's update is dispatched (``message_hook``: the board
     is updated synchronously inside the ChecksFinished handler, so the next
     message of any kind comes after it). The reference is the same
-    ``engine.measure()`` call run headless in this process on the same bench.
+    ``engine.measure()`` call run headless in this process on the same
+    out-of-process bench.
     Medians over ~20 landings, with an accept between landings.
 (b) start-up: ``python -m tui demo`` in a subprocess under a pty, from spawn to
     the first screen's text on the terminal.
@@ -169,11 +172,62 @@ def startup_seconds(root: Path, repeat: int) -> list[float]:
     return out
 
 
-def measure_ui(report, quick: bool) -> None:
-    from run import SimRig
+class ProcessRig:
+    """The simulated bench in its own process (``python -m tui simbench``), as a
+    real VNA and prober are: their replies never wait for this process's GIL.
+    Same attributes as bench/run.py's SimRig that the engine needs (``bench``)."""
 
+    def __init__(self, seed: int = 5):
+        import subprocess
+
+        from drivers.prober import ScpiProber
+        from drivers.vna import ScpiVna
+        from probelog.bench import Bench
+
+        self.proc = subprocess.Popen([sys.executable, "-m", "tui", "simbench", "--seed", str(seed),
+                                      "--fault-rate", "0"], cwd=ROOT, stdout=subprocess.PIPE,
+                                     stderr=subprocess.PIPE, text=True)
+        try:
+            found: dict[str, str] = {}
+            while len(found) < 2:
+                line = self.proc.stdout.readline()
+                if not line:
+                    raise RuntimeError(f"simbench exited before naming its resources: {self.proc.stderr.read()[-400:]}")
+                word, _, res = line.partition(" ")
+                if word in ("vna", "prober"):
+                    found[word] = res.strip()
+            self.vna_res, self.prober_res = found["vna"], found["prober"]
+            self.vna = ScpiVna(self.vna_res)
+            self.prober = ScpiProber(self.prober_res, probe_ids=["GSG100-A17", "GSG100-B04"])
+            self.bench = Bench(vna=self.vna, prober=self.prober, description="bench rig (own process)")
+        except BaseException:
+            self._stop()
+            raise
+
+    def _stop(self) -> None:
+        import signal
+        import subprocess
+
+        if self.proc.poll() is None:
+            self.proc.send_signal(signal.SIGINT)  # simbench stops its servers on Ctrl-C
+            try:
+                self.proc.wait(5)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
+                self.proc.wait()
+        self.proc.stdout.close()
+        self.proc.stderr.close()
+
+    def close(self) -> None:
+        try:
+            self.bench.close()
+        finally:
+            self._stop()
+
+
+def measure_ui(report, quick: bool) -> None:
     n = 8 if quick else 20
-    rig = SimRig()
+    rig = ProcessRig()
     try:
         with tempfile.TemporaryDirectory() as tmp:
             tmp = Path(tmp)
