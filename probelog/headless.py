@@ -111,9 +111,22 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
     done, total = engine.progress
     printer.start(total, done)
     printer.line(f"session {engine.session_id}: {total - done} site landings to go")
-    failures_here = 0  # failed landings / instrument errors on the current step
+    # failed landings / instrument errors per step (kind, die, site): a drift
+    # re-measure in between does not restart a site's count
+    fails: dict[tuple, int] = {}
+    key: tuple = ()
     cal_redos = 0  # calibrations redone in a row because their verification failed
-    last_key = None  # the step failures_here counts for
+
+    def retry(failed: bool, again) -> bool:
+        """Call ``again`` (re-land) while the step keeps failing, up to ``retries``
+        times; False (and the count reset) once it passed or the tries are used up."""
+        if failed and fails.get(key, 0) < retries:
+            fails[key] = fails.get(key, 0) + 1
+            counts["relands"] += 1
+            again()
+            return True
+        fails.pop(key, None)
+        return False
     try:
         while engine.phase is not Phase.DONE:
             phase = engine.phase
@@ -139,16 +152,14 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
                 continue
             step = engine.next_step
             key = (step.kind, step.die, step.site) if step is not None else None
-            if key != last_key:
-                failures_here, last_key = 0, key
             try:
                 outcome = engine.measure()
             except InstrumentError as exc:
                 counts["errors"] += 1
-                failures_here += 1
-                printer.line(f"instrument error ({exc}); retry {failures_here}/{retries + 1}")
-                if failures_here > retries:
-                    failures_here = 0
+                fails[key] = fails.get(key, 0) + 1
+                printer.line(f"instrument error ({exc}); retry {fails[key]}/{retries + 1}")
+                if fails[key] > retries:
+                    fails.pop(key, None)
                     if step is not None and step.kind is StepKind.SITE:
                         engine.give_up(f"headless: instrument error after {retries + 1} tries: {exc}")
                         printer.line(f"{_where(step)} given up after instrument errors")
@@ -157,24 +168,19 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
                 continue
             counts["landings"] += 1
             step = outcome.step
+            failed = outcome.verdict is Verdict.FAIL
             if step.kind is StepKind.CAL_STANDARD:
                 line = f"cal {step.standard:<8} {_where(step)} L{step.landing} {outcome.verdict.value}"
-                if outcome.verdict is Verdict.FAIL and failures_here < retries:
-                    failures_here += 1
-                    counts["relands"] += 1
-                    engine.reland(f"headless: {_fmt_checks(outcome)}")
+                if retry(failed, lambda: engine.reland(f"headless: {_fmt_checks(outcome)}")):
                     printer.line(f"{line} -> re-land ({_fmt_checks(outcome)})")
                 else:
-                    failures_here = 0
                     printer.line(f"{line} {_fmt_checks(outcome)}".rstrip())
                 continue
             if step.kind is StepKind.DRIFT:
                 printer.line(f"drift {_where(step)} {outcome.verdict.value} {_fmt_checks(outcome)}".rstrip())
                 landed_badly = any(c.name == "contact" and c.verdict is Verdict.FAIL for c in outcome.checks)
-                if landed_badly and failures_here < retries:
-                    failures_here += 1
-                    counts["relands"] += 1
-                    engine.request_drift()  # re-land the reference: its contact failed, not the cal
+                # re-land the reference when its contact failed: that is the landing, not the cal
+                if retry(landed_badly, engine.request_drift):
                     continue
                 if advised:
                     reason = advised.pop()
@@ -186,17 +192,13 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
                 continue
             d, t = engine.progress
             line = f"[{d + 1}/{t}] {_where(step)} L{step.landing} {outcome.verdict.value}"
-            if outcome.verdict is not Verdict.FAIL:
+            if not failed:
                 engine.accept()
-                failures_here = 0
+                fails.pop(key, None)
                 printer.line(line)
-            elif failures_here < retries:
-                failures_here += 1
-                counts["relands"] += 1
-                engine.reland(f"headless: {_fmt_checks(outcome)}")
+            elif retry(failed, lambda: engine.reland(f"headless: {_fmt_checks(outcome)}")):
                 printer.line(f"{line} -> re-land ({_fmt_checks(outcome)})")
             else:
-                failures_here = 0
                 engine.give_up(f"headless: still failing after {retries} re-landings: {_fmt_checks(outcome)}")
                 printer.line(f"{line} -> given up ({_fmt_checks(outcome)})")
             printer.advance(engine.progress[0])

@@ -233,7 +233,7 @@ BROKEN = [
     ("[limits]\n", '[limits]\ncontact_db = "x"\n', "limits.contact_db", "contact_db", "finite number"),
     ("z0_window_ohm = [46.9, 56.5]", "z0_window_ohm = [56.5, 46.9]", "site[4].z0_window_ohm", "[56.5, 46.9]",
      "low < high"),
-    ("window_band_hz = [1.0e9, 60.0e9]", "window_band_hz = [60.0e9]", "site[4].window_band_hz",
+    ("window_band_hz = [15.0e9, 60.0e9]", "window_band_hz = [60.0e9]", "site[4].window_band_hz",
      "[60.0e9]", "band [low, high] in Hz"),
     ('ids = ["GSG100-A17", "GSG100-B04"]', "ids = []", "probes.ids", "ids = []", "one or two probe ids"),
     ("recal_every_hours = 4.0", "recal_every_hours = -1", "sequence.recal_every_hours", "recal_every", '"never"'),
