@@ -187,6 +187,38 @@ def test_keys_follow_the_phase(tmp_path):
     run(go())
 
 
+def test_footer_greys_keys_in_place_as_textual_reckons_them(tmp_path):
+    # Reference: Textual's own Screen.active_bindings, which asks check_action; the
+    # footer must show each key enabled exactly when Textual would run it, and a
+    # landing (keys greyed, then back) must not rebuild the key widgets.
+    from textual.widgets._footer import FooterKey
+
+    def footer_state(app):
+        active = app.screen.active_bindings
+        return [(k.key, not k._disabled, active[k.key].enabled) for k in app.screen.query(FooterKey)]
+
+    async def go():
+        app = build_app(lambda: FakeEngine(tmp_path / "s"), show_cautions=False)
+        async with app.run_test(size=(120, 40)) as pilot:
+            await settle(pilot, "open")
+            await calibrate(pilot)
+            await press(pilot, "a")
+            assert isinstance(app.screen, Probe)
+            await pilot.pause()
+            before = footer_state(app)
+            assert before and all(shown == reckoned for _, shown, reckoned in before)
+            widgets = list(app.screen.query(FooterKey))
+            await press(pilot, "space")
+            await pilot.pause()
+            after = footer_state(app)
+            assert all(shown == reckoned for _, shown, reckoned in after)
+            assert dict((k, on) for k, on, _ in after)["a"] and not dict((k, on) for k, on, _ in before)["a"]
+            assert list(app.screen.query(FooterKey)) == widgets  # greyed in place, not rebuilt
+            await quit_session(pilot)
+
+    run(go())
+
+
 class BrokenVna(FakeEngine):
     def measure(self):
         raise ConnectionError("VNA on TCPIP::127.0.0.1::5025::SOCKET did not answer *OPC? within 10 s")

@@ -11,9 +11,10 @@ from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
-from textual.widgets import DataTable, Footer, Header, Static
+from textual.widgets import DataTable, Header, Static
 
 from probelog.verdicts import CheckResult, Verdict, overall
+from tui.widgets.bench_footer import BenchFooter
 from tui.messages import CalibrationSolved, ChecksFinished, LandingStarted, SweepMeasured
 from tui.screens.base import BenchScreen, reflections, turns_matter
 from tui.screens.dialogs import AskReason
@@ -82,7 +83,7 @@ class Calibrate(BenchScreen):
                 with Horizontal(id="cal-lower"):
                     yield SmithChart(id="smith")
                     yield Logbook(id="logbook")
-        yield Footer()
+        yield BenchFooter()
 
     def on_mount(self) -> None:
         self.title = "probelog"

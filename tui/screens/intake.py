@@ -13,7 +13,7 @@ from textual.binding import Binding
 from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.message import Message
 from textual.screen import Screen
-from textual.widgets import Button, Footer, Header, Input, Label, OptionList, Select, Static
+from textual.widgets import Button, Header, Input, Label, OptionList, Select, Static
 from textual.widgets.option_list import Option
 
 BENCH_KINDS = (
@@ -135,7 +135,7 @@ class Intake(Screen):
                 yield Static("RESUME AN UNFINISHED SESSION", classes="section")
                 yield OptionList(id="resume-list")
                 yield Static("", id="resume-hint")
-        yield Footer()
+        yield BenchFooter()
 
     def on_mount(self) -> None:
         self.title = "probelog"

@@ -5,7 +5,9 @@ from __future__ import annotations
 from textual.app import ComposeResult
 from textual.containers import Vertical
 from textual.screen import Screen
-from textual.widgets import Footer, Header, LoadingIndicator, Static
+from textual.widgets import Header, LoadingIndicator, Static
+
+from tui.widgets.bench_footer import BenchFooter
 
 
 class Opening(Screen):
@@ -22,4 +24,4 @@ class Opening(Screen):
         with Vertical(id="opening-box"):
             yield Static(self.what, id="opening-what")
             yield LoadingIndicator()
-        yield Footer()
+        yield BenchFooter()

@@ -10,8 +10,9 @@ from textual import events, work
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
-from textual.widgets import Footer, Header
+from textual.widgets import Header
 
+from tui.widgets.bench_footer import BenchFooter
 from tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from tui.screens.base import BenchScreen, reflections, turns_matter
 from tui.screens.dialogs import AskReason, Confirm
@@ -111,7 +112,7 @@ class Probe(BenchScreen):
                     with Vertical(id="side"):
                         yield DieMap(id="map")
                         yield TipWear(id="wear")
-        yield Footer()
+        yield BenchFooter()
 
     def on_mount(self) -> None:
         self.title = "probelog"
