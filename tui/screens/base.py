@@ -11,7 +11,7 @@ from __future__ import annotations
 from typing import Any
 
 from textual import work
-from textual.reactive import reactive
+from textual.reactive import var
 from textual.screen import Screen
 from textual.worker import Worker, WorkerState
 
@@ -46,7 +46,9 @@ def reflections(outcome: Any) -> tuple[list[tuple[str, Any]], Any]:
 class BenchScreen(Screen):
     """Base of the calibrate and probe screens."""
 
-    busy: reactive[bool] = reactive(False)
+    # a var, not a reactive: the flag greys keys (refresh_bindings below) and must
+    # not repaint the whole screen each time a worker starts or ends
+    busy: var[bool] = var(False)
 
     @property
     def engine(self) -> Any:

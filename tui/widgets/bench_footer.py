@@ -48,6 +48,7 @@ class BenchFooter(Footer):
             await self.recompose()
             return
         enabled = {(key, action): on for key, action, _, on in shown}
+        changed = []
         for widget in self.query(FooterKey):
             on = enabled.get((widget.key, widget.action))
             if on is None:  # a key we cannot place: rebuild rather than guess
@@ -55,4 +56,7 @@ class BenchFooter(Footer):
                 return
             if widget._disabled == on:
                 widget._disabled = not on
-                widget.set_class(not on, "-disabled")
+                widget.set_class(not on, "-disabled", update=False)
+                changed.append(widget)
+        if changed:  # one restyle for all the keys that changed
+            self.app.stylesheet.update_nodes(changed, animate=False)

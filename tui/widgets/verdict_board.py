@@ -49,6 +49,8 @@ def format_ghz(at_hz: float | None) -> str:
     return "" if at_hz is None else f"{at_hz / 1e9:.1f} GHz"
 
 
+_CLASSES = tuple(look[3] for look in _LOOK.values()) + ("v-busy",)
+
 _STYLES = {Verdict.PASS: "bold green", Verdict.WARN: "bold yellow",
            Verdict.FAIL: "bold reverse red", Verdict.NA: "dim"}
 
@@ -102,7 +104,7 @@ class VerdictBoard(Vertical):
     def show_checks(self, checks: list[CheckResult], caption: str,
                     verdict: Verdict | None = None) -> None:
         """Show a finished set of checks; the overall verdict is the worst one."""
-        self.query_one("#checks", Static).update(checks_table(checks, wide=self.size.width >= 56))
+        self._set_checks(checks_table(checks, wide=self.size.width >= 56))
         self.status = caption
         self.verdict = verdict if verdict is not None else overall(checks)
         self.mutate_reactive(VerdictBoard.verdict)
@@ -111,26 +113,34 @@ class VerdictBoard(Vertical):
         """The bench is working: no verdict until the sweep is checked."""
         self.verdict = None
         self.status = what
-        self.query_one("#checks", Static).update("")
+        self._set_checks("")
+
+    def _set_checks(self, content: Any) -> None:
+        """Put the checks table up. A layout pass (which measures the whole table)
+        is asked for only when the table's height follows its content; a screen
+        that gives the board a fixed height (the probe screen) spares it."""
+        checks = self.query_one("#checks", Static)
+        height = checks.styles.height
+        checks.update(content, layout=height is None or height.is_auto)
 
     def watch_verdict(self, verdict: Verdict | None) -> None:
         big = self.query_one("#big", Static)
-        for _, _, _, cls in _LOOK.values():
-            self.remove_class(cls)
-        self.remove_class("v-busy")
+        look = "v-busy" if verdict is None else _LOOK[verdict][3]
+        # one restyle of the board for the change of look, not one per class touched
+        for cls in _CLASSES:
+            self.set_class(cls == look, cls, update=False)
+        self.update_node_styles(animate=False)
         if verdict is None:
-            self.add_class("v-busy")
-            big.update(Text("· · ·", style="bold"))
+            big.update(Text("· · ·", style="bold"), layout=False)
             self.border_title = "verdict"
             return
-        word, sym, bigsym, cls = _LOOK[verdict]
-        self.add_class(cls)
+        word, sym, bigsym, _ = _LOOK[verdict]
         rows = [s + "  " + w for s, w in zip(render_big(bigsym), render_big(word))]
-        big.update("\n".join(rows))
+        big.update("\n".join(rows), layout=False)
         self.border_title = f"verdict: {sym} {word}"
 
     def watch_status(self, status: str) -> None:
-        self.query_one("#caption", Static).update(status)
+        self.query_one("#caption", Static).update(status, layout=False)  # one fixed row
 
     @property
     def shown_text(self) -> str:

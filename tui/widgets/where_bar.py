@@ -38,4 +38,4 @@ class WhereBar(Static):
         text.append(next_ + "\n")
         text.append("BENCH ", "bold")
         text.append(doing, doing_style)
-        self.update(text)
+        self.update(text, layout=False)  # three fixed rows: no layout pass
