@@ -43,9 +43,11 @@ def flat_metrics(metrics: Any, prefix: str = "") -> dict[str, float]:
     return out
 
 
-def die_metrics(journal_events: list[dict]) -> dict[tuple[int, int], dict[str, float]]:
-    """Latest landing metrics per die, from the journal (the site name prefixes each key)."""
-    out: dict[tuple[int, int], dict[str, float]] = {}
+def die_metrics(journal_events: list[dict],
+                into: dict[tuple[int, int], dict[str, float]] | None = None) -> dict[tuple[int, int], dict[str, float]]:
+    """Latest landing metrics per die, from the journal (the site name prefixes each
+    key); with ``into``, folds the events into an earlier result and returns it."""
+    out: dict[tuple[int, int], dict[str, float]] = {} if into is None else into
     for ev in journal_events:
         p = ev.get("payload") or {}
         if ev.get("type") == "landing" and p.get("metrics"):
@@ -118,6 +120,9 @@ class Probe(BenchScreen):
         self.title = "probelog"
         self.sub_title = "probing"
         self._compact: bool | None = None
+        self._metrics: dict[tuple[int, int], dict[str, float]] = {}
+        self._metrics_seen = 0  # journal events folded into _metrics so far
+        self._keys_state: tuple | None = None
         super().on_mount()
         last = self.engine.last_outcome
         if last is not None:  # resumed (or came back) while a landing awaits a decision
@@ -238,8 +243,9 @@ class Probe(BenchScreen):
     # ---------------------------------------------------------------- messages
 
     def on_landing_started(self, message: LandingStarted) -> None:
-        self.query_one("#board", VerdictBoard).show_busy(f"landing: {describe_step(message.step)}")
-        self._where(doing="▶ moving at separation, contacting, sweeping…")
+        with self.app.batch_update():  # board and where bar in one screen update
+            self.query_one("#board", VerdictBoard).show_busy(f"landing: {describe_step(message.step)}")
+            self._where(doing="▶ moving at separation, contacting, sweeping…")
 
     def on_sweep_measured(self, message: SweepMeasured) -> None:
         # The verdict matters first: the plots are drawn after the next repaint, so
@@ -256,7 +262,8 @@ class Probe(BenchScreen):
     def on_checks_finished(self, message: ChecksFinished) -> None:
         o = message.outcome
         prefix = "drift reference · " if kind_name(o.step.kind) == "DRIFT" else ""
-        self.query_one("#board", VerdictBoard).show_checks(o.checks, prefix + summarize(o), o.verdict)
+        with self.app.batch_update():  # table, caption, verdict and look in one screen update
+            self.query_one("#board", VerdictBoard).show_checks(o.checks, prefix + summarize(o), o.verdict)
 
     def on_decision_recorded(self, message: DecisionRecorded) -> None:
         if message.action in ("accept", "skip"):
@@ -272,22 +279,39 @@ class Probe(BenchScreen):
     # ---------------------------------------------------------------- view
 
     def refresh_view(self) -> None:
+        with self.app.batch_update():  # map, wear, where bar and keys in one screen update
+            self._refresh_view()
+
+    def _refresh_view(self) -> None:
         engine = self.engine
         last = engine.last_outcome
         current = last.step.die if last is not None else (engine.next_step.die if engine.next_step else None)
-        self.query_one("#map", DieMap).update_state(engine.wafer_status, current,
-                                                    die_metrics(list(self.app.journal_events)))
+        self.query_one("#map", DieMap).update_state(engine.wafer_status, current, self._die_metrics())
         life = getattr(getattr(getattr(engine, "plan", None), "probes", None), "wear_warn_touchdowns", None)
         # the plan's warning threshold is 80 % of the life we draw against
         self.query_one("#wear", TipWear).update_counts(engine.touchdowns, int(life / 0.8) if life else None)
         self._where()
-        self.refresh_bindings()
+        # the keys depend on the phase, the busy flag and the next step's kind only;
+        # each refresh_bindings costs the footer a pass over every binding
+        nxt = engine.next_step
+        keys_state = (kind_name(engine.phase), self.busy, None if nxt is None else kind_name(nxt.kind))
+        if keys_state != self._keys_state:
+            self._keys_state = keys_state
+            self.refresh_bindings()
 
     def journal_grew(self, events_: list[dict]) -> None:
         super().journal_grew(events_)
         if any(e.get("type") == "landing" and (e.get("payload") or {}).get("metrics") for e in events_):
-            self.query_one("#map", DieMap).update_state(self.engine.wafer_status, self.query_one("#map", DieMap).current,
-                                                        die_metrics(list(self.app.journal_events)))
+            die_map = self.query_one("#map", DieMap)
+            die_map.update_state(self.engine.wafer_status, die_map.current, self._die_metrics())
+
+    def _die_metrics(self) -> dict[tuple[int, int], dict[str, float]]:
+        """die_metrics of the whole journal, folding in only the events not seen yet
+        (a rescan per landing would grow with the session)."""
+        events = self.app.journal_events
+        die_metrics(events[self._metrics_seen:], into=self._metrics)
+        self._metrics_seen = len(events)
+        return self._metrics
 
     def _where(self, doing: str | None = None) -> None:
         engine = self.engine
