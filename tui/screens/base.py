@@ -43,6 +43,11 @@ def reflections(outcome: Any) -> tuple[list[tuple[str, Any]], Any]:
     return traces, net
 
 
+# How long an instrument step may run before the screen says so (s): shorter steps
+# would only flash; every real sweep is longer.
+BUSY_SHOW_S = 0.05
+
+
 class BenchScreen(Screen):
     """Base of the calibrate and probe screens."""
 
@@ -102,8 +107,18 @@ class BenchScreen(Screen):
             if not self.busy:
                 self.refresh_view()
 
-    def watch_busy(self, _busy: bool) -> None:
-        self.refresh_bindings()
+    def watch_busy(self, busy: bool) -> None:
+        # Keys are refused at once (check_action reads ``busy``); greying them on
+        # screen waits BUSY_SHOW_S, so a fast landing costs no footer repaint while
+        # the worker runs (the UI thread and the worker share the GIL).
+        if busy:
+            self.set_timer(BUSY_SHOW_S, self._grey_if_still_busy)
+        else:
+            self.refresh_bindings()
+
+    def _grey_if_still_busy(self) -> None:
+        if self.busy:
+            self.refresh_bindings()
 
     # ---------------------------------------------------------------- views
 

@@ -14,7 +14,7 @@ from textual.widgets import Header
 
 from tui.widgets.bench_footer import BenchFooter
 from tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
-from tui.screens.base import BenchScreen, reflections, turns_matter
+from tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
 from tui.screens.dialogs import AskReason, Confirm
 from tui.widgets.die_map import DieMap
 from tui.widgets.logbook import Logbook
@@ -115,6 +115,8 @@ class Probe(BenchScreen):
                         yield DieMap(id="map")
                         yield TipWear(id="wear")
         yield BenchFooter()
+
+    _landing_note = None  # Timer that shows "landing…" if the landing takes a while
 
     def on_mount(self) -> None:
         self.title = "probelog"
@@ -243,8 +245,15 @@ class Probe(BenchScreen):
     # ---------------------------------------------------------------- messages
 
     def on_landing_started(self, message: LandingStarted) -> None:
+        # shown only if the landing outlasts BUSY_SHOW_S (see BenchScreen.watch_busy)
+        self._landing_note = self.set_timer(BUSY_SHOW_S, lambda: self._show_landing(message.step))
+
+    def _show_landing(self, step: Any) -> None:
+        self._landing_note = None
+        if not self.busy:  # finished (or failed) meanwhile
+            return
         with self.app.batch_update():  # board and where bar in one screen update
-            self.query_one("#board", VerdictBoard).show_busy(f"landing: {describe_step(message.step)}")
+            self.query_one("#board", VerdictBoard).show_busy(f"landing: {describe_step(step)}")
             self._where(doing="▶ moving at separation, contacting, sweeping…")
 
     def on_sweep_measured(self, message: SweepMeasured) -> None:
@@ -260,6 +269,9 @@ class Probe(BenchScreen):
         self.query_one("#smith", SmithChart).set_traces(traces, caption, turns_matter(message.outcome))
 
     def on_checks_finished(self, message: ChecksFinished) -> None:
+        if self._landing_note is not None:
+            self._landing_note.stop()
+            self._landing_note = None
         o = message.outcome
         prefix = "drift reference · " if kind_name(o.step.kind) == "DRIFT" else ""
         with self.app.batch_update():  # table, caption, verdict and look in one screen update
