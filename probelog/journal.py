@@ -10,8 +10,8 @@ written with one ``write`` on an O_APPEND descriptor and fsync'ed. An event is
 acknowledged (``append`` returns) only after its fsync returned, so a crash
 loses at most the event being written: its torn line is moved aside on reopen.
 
-Only the standard library is used here so that a crashed process's session can
-be reopened quickly, and so the journal stays importable without numpy.
+Besides the standard library only orjson is used (to read lines back fast when a
+long session is reopened); the journal stays importable without numpy.
 """
 
 from __future__ import annotations
@@ -29,6 +29,8 @@ from datetime import datetime, timezone
 from enum import Enum
 from pathlib import Path, PurePosixPath
 from typing import Any, Iterator
+
+import orjson  # reading only (2-3x faster than json on long journals); lines are written by json
 
 JOURNAL_NAME = "journal.jsonl"
 DATA_DIR = "data"
@@ -181,7 +183,7 @@ def _fsync_dir(path: Path) -> None:
 def _parse(raw: bytes) -> tuple[dict | None, str]:
     """One line -> (record, "") or (None, what is wrong)."""
     try:
-        rec = json.loads(raw)
+        rec = orjson.loads(raw)
     except (ValueError, RecursionError) as exc:  # UnicodeDecodeError is a ValueError
         return None, f"not valid JSON ({exc.__class__.__name__})"
     if not isinstance(rec, dict) or set(rec) != _EVENT_KEYS:
@@ -369,7 +371,7 @@ class Journal:
             data = fh.read(size)
         out, prev = [], ZERO_HASH
         for raw in data.split(b"\n")[:-1]:
-            rec = json.loads(raw)
+            rec = orjson.loads(raw)
             h = hashlib.sha256(raw).hexdigest()
             out.append(Event(rec["seq"], rec["ts"], rec["type"], rec["payload"], prev, h))
             prev = h
@@ -490,7 +492,7 @@ class Journal:
             self._size += len(line) + 1
             # Keep what a reader of the file gets back (NaN as None, numpy as
             # lists), decoupled from the caller's dict.
-            stored = json.loads(line)["payload"]
+            stored = orjson.loads(line)["payload"]
             event = Event(seq, record["ts"], type, stored, prev, hashlib.sha256(line).hexdigest())
             self._count += 1
             self._last = event
