@@ -116,3 +116,18 @@ def test_csv_has_one_row_per_frequency(tmp_path):
     assert float(rows[1].split(",")[0]) == 1e9
     # noise 0.002 dB / 0.02 deg: the two cals differ, but by far less than 1 %
     assert 1e-6 < a.worst < 0.01
+
+
+def test_bound_in_frequency_chunks_equals_one_frequency_at_a_time():
+    # Each frequency's bound depends only on that frequency's difference boxes,
+    # so long sweeps may be cut into chunks without changing any value.
+    from probelog.cal_agreement import _FREQ_CHUNK, agreement_bound
+
+    rng = np.random.default_rng(3)
+    n = _FREQ_CHUNK + 7
+    eye = np.array([[0, 1], [1, 0]], complex)
+    d1 = eye + 0.01 * (rng.normal(size=(n, 2, 2)) + 1j * rng.normal(size=(n, 2, 2)))
+    d2 = eye + 0.01 * (rng.normal(size=(n, 2, 2)) + 1j * rng.normal(size=(n, 2, 2)))
+    whole = agreement_bound(d1, d2)
+    for i in (0, _FREQ_CHUNK - 1, _FREQ_CHUNK, n - 1):
+        np.testing.assert_allclose(whole[i], agreement_bound(d1[i], d2[i])[0], rtol=1e-12)
