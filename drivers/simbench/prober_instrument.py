@@ -8,8 +8,8 @@ from __future__ import annotations
 
 import threading
 
-from drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError, split_line
-from drivers.simbench.server import Reply
+from drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError
+from drivers.simbench.server import Reply, run_line
 from drivers.simbench.state import BenchState
 
 IDN = "probelog,SimProber-200,PLX7-SIM-0002,0.1.0"
@@ -46,14 +46,4 @@ class SimProber:
         self.state.move((col, row), x, y)
 
     def handle_line(self, line: str) -> Reply | None:
-        answers: list[str] = []
-        with self._lock:
-            for header, args in split_line(line):
-                try:
-                    out = self.table.find(header)(args)
-                except ScpiError as err:
-                    self.errors.push(err)
-                    continue
-                if isinstance(out, str):
-                    answers.append(out)
-        return Reply(";".join(answers).encode("ascii")) if answers else None
+        return run_line(line, self.table, self.errors, self._lock)

@@ -13,6 +13,8 @@ import threading
 from dataclasses import dataclass
 from typing import Protocol
 
+from drivers.simbench.scpi import ScpiError, split_line
+
 MAX_LINE = 1 << 16
 _QUICKACK = getattr(socket, "TCP_QUICKACK", None)  # Linux only
 
@@ -29,6 +31,30 @@ class Reply:
 
 class Instrument(Protocol):
     def handle_line(self, line: str) -> Reply | None: ...
+
+
+def run_line(line: str, table, errors, lock: threading.Lock) -> Reply | None:
+    """Run every command of one SCPI line against ``table`` (a CommandTable) under
+    ``lock``; an ScpiError goes to ``errors``, the queries' answers are joined
+    with ';' (IEEE 488.2 response message units) into one Reply, or None."""
+    answers: list[Reply] = []
+    with lock:
+        for header, args in split_line(line):
+            try:
+                out = table.find(header)(args)
+            except ScpiError as err:
+                errors.push(err)
+                continue
+            if isinstance(out, Reply):
+                answers.append(out)
+            elif isinstance(out, str):
+                answers.append(Reply(out.encode("ascii")))
+    if not answers:
+        return None
+    if len(answers) == 1:
+        return answers[0]
+    return Reply(b";".join(a.data for a in answers), next((a.fault for a in answers if a.fault), None),
+                 max(a.delay_s for a in answers))
 
 
 class _Handler(socketserver.StreamRequestHandler):

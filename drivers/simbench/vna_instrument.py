@@ -14,8 +14,8 @@ import time
 import numpy as np
 
 from drivers.simbench.impairments import SimClock
-from drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError, integer, number, split_line
-from drivers.simbench.server import Reply
+from drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError, integer, number
+from drivers.simbench.server import Reply, run_line
 from drivers.simbench.simulator import Simulator
 from drivers.simbench.state import BenchState
 
@@ -212,21 +212,4 @@ class SimVna:
     # ---- dispatch --------------------------------------------------------------------------
     def handle_line(self, line: str) -> Reply | None:
         """Run every command of one line; queries' answers are joined with ';'."""
-        answers: list[Reply] = []
-        with self._lock:
-            for header, args in split_line(line):
-                try:
-                    out = self.table.find(header)(args)
-                except ScpiError as err:
-                    self.errors.push(err)
-                    continue
-                if isinstance(out, Reply):
-                    answers.append(out)
-                elif isinstance(out, str):
-                    answers.append(Reply(out.encode("ascii")))
-        if not answers:
-            return None
-        if len(answers) == 1:
-            return answers[0]
-        return Reply(b";".join(a.data for a in answers), next((a.fault for a in answers if a.fault), None),
-                     max(a.delay_s for a in answers))
+        return run_line(line, self.table, self.errors, self._lock)
