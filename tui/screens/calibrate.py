@@ -42,12 +42,13 @@ def agreement_check(agreement: dict | None) -> CheckResult | None:
 
 
 def cal_checks(outcome: Any) -> list[CheckResult]:
-    """Every verification check (site-prefixed) and the agreement, for the board."""
+    """Every verification check (named "check · site") and the agreement, for the board."""
     rows = []
     for v in outcome.verification:
         for c in v.checks:
-            rows.append(CheckResult(f"{v.step.site}: {c.name}", c.verdict, c.value, c.limit,
-                                    c.at_hz, c.message, c.unit))
+            # what was checked first, where second: a narrow board cuts from the end
+            rows.append(CheckResult(f"{c.name.removeprefix('ver-')} · {v.step.site}", c.verdict, c.value,
+                                    c.limit, c.at_hz, c.message, c.unit))
     agree = agreement_check(outcome.agreement)
     if agree is not None:
         rows.append(agree)
