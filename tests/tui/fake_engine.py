@@ -1,5 +1,6 @@
-"""A small engine for UI tests that follows docs/engine.md: same phases, methods,
-events and journal lines (docs/journal-events.md, hash-chained), with networks from
+"""A small engine for UI tests that follows docs/engine.md: the engine's own
+phase, step, outcome and event types (imported, so they cannot drift apart), the
+same methods and journal lines (docs/journal-events.md, hash-chained), with networks from
 scikit-rf media so the plots show real physics. A fault (lifted tip on port 1) is
 injected on chosen (die, site, landing) triples.
 """
@@ -9,9 +10,7 @@ from __future__ import annotations
 import hashlib
 import json
 import threading
-from dataclasses import dataclass, field
 from datetime import datetime, timezone
-from enum import Enum
 from pathlib import Path
 from typing import Any, Callable
 
@@ -19,6 +18,21 @@ import numpy as np
 import skrf
 from skrf.media import DefinedGammaZ0
 
+from probelog.session import (
+    CalibrationComputed,
+    CalOutcome,
+    DecisionRecorded,
+    JumpedToDie,
+    LandingOutcome,
+    NoteAdded,
+    Phase,
+    PhaseChanged,
+    SessionClosed,
+    StandardStatus,
+    Step,
+    StepKind,
+    StepMeasured,
+)
 from probelog.verdicts import CheckResult, Verdict, overall
 
 CAUTIONS = ("RF power stays at or below the plan's limit. Wear an ESD strap. Never move in XY "
@@ -28,114 +42,6 @@ FREQ = skrf.Frequency(1, 50, 50, unit="GHz")
 EPS_EFF = 6.0
 MEDIA = DefinedGammaZ0(FREQ, z0_port=50, z0=50,
                        gamma=0.5 * np.sqrt(FREQ.f / 1e9) + 1j * 2 * np.pi * FREQ.f * np.sqrt(EPS_EFF) / 299_792_458.0)
-
-
-class Phase(str, Enum):
-    CALIBRATING = "calibrating"
-    VERIFYING = "verifying"
-    PROBING = "probing"
-    DECIDING = "deciding"
-    DONE = "done"
-
-
-class StepKind(str, Enum):
-    CAL_STANDARD = "cal-standard"
-    SITE = "site"
-    VERIFY = "verify"
-    DRIFT = "drift"
-
-
-@dataclass(frozen=True)
-class Step:
-    kind: StepKind
-    die: tuple[int, int]
-    site: str
-    site_kind: str
-    landing: int
-    index: int
-    total: int
-    standard: str | None = None
-
-
-@dataclass
-class LandingOutcome:
-    step: Step
-    raw: skrf.Network
-    corrected: skrf.Network | None
-    checks: list[CheckResult]
-    verdict: Verdict
-    metrics: dict | None
-    seq: int
-    files: dict = field(default_factory=dict)
-
-
-@dataclass(frozen=True)
-class StandardStatus:
-    name: str
-    site: str
-    kind: str
-    measured: bool
-    verdict: Verdict | None
-
-
-@dataclass
-class CalOutcome:
-    cal_id: str
-    method: str
-    ok: bool
-    message: str
-    calset: Any
-    verification: list[LandingOutcome]
-    agreement: dict | None
-    verdict: Verdict
-    seq: int
-
-
-@dataclass(frozen=True)
-class PhaseChanged:
-    seq: int
-    phase: Phase
-
-
-@dataclass(frozen=True)
-class StepMeasured:
-    seq: int
-    outcome: LandingOutcome
-
-
-@dataclass(frozen=True)
-class CalibrationComputed:
-    seq: int
-    outcome: CalOutcome
-
-
-@dataclass(frozen=True)
-class DecisionRecorded:
-    seq: int
-    die: tuple[int, int]
-    site: str
-    landing: int
-    action: str
-    reason: str
-
-
-@dataclass(frozen=True)
-class NoteAdded:
-    seq: int
-    text: str
-
-
-@dataclass(frozen=True)
-class JumpedToDie:
-    seq: int
-    die: tuple[int, int]
-    reason: str
-
-
-@dataclass(frozen=True)
-class SessionClosed:
-    seq: int
-    completed: bool
 
 
 STANDARDS = [("open", "cal-open", "open"), ("short", "cal-short", "short"),
@@ -280,7 +186,7 @@ class FakeEngine:
 
     def _set_phase(self, phase: Phase, seq: int) -> None:
         self._phase = phase
-        self._emit(PhaseChanged(seq, phase))
+        self._emit(PhaseChanged(seq=seq, phase=phase))
 
     @property
     def phase(self) -> Phase:
@@ -368,7 +274,7 @@ class FakeEngine:
                     "checks": [c.to_json() for c in checks], "verdict": verdict.value})
                 self._std[step.standard] = verdict
                 out = LandingOutcome(step, net, None, checks, verdict, None, seq)
-                self._emit(StepMeasured(seq, out))
+                self._emit(StepMeasured(seq=seq, outcome=out))
                 return out
             key = (step.die, step.site)
             self._landings[key] = step.landing
@@ -389,7 +295,7 @@ class FakeEngine:
             else:
                 self._last = out
                 self._set_phase(Phase.DECIDING, seq)
-            self._emit(StepMeasured(seq, out))
+            self._emit(StepMeasured(seq=seq, outcome=out))
             return out
 
     def compute_calibration(self) -> CalOutcome:
@@ -418,7 +324,7 @@ class FakeEngine:
                              Verdict.PASS, aseq)
             self._pending = out
             self._set_phase(Phase.VERIFYING, aseq)
-            self._emit(CalibrationComputed(aseq, out))
+            self._emit(CalibrationComputed(seq=aseq, outcome=out))
             return out
 
     def accept_calibration(self, reason: str = "") -> None:
@@ -452,7 +358,7 @@ class FakeEngine:
             if action != "reland":
                 self._finished[(die, site)] = action
             self._last = None
-            self._emit(DecisionRecorded(seq, die, site, landing, action, reason))
+            self._emit(DecisionRecorded(seq=seq, die=die, site=site, landing=landing, action=action, reason=reason))
             done = len(self._finished) == len(DIES) * len(SITES)
             self._set_phase(Phase.DONE if done else Phase.PROBING, seq)
 
@@ -475,7 +381,7 @@ class FakeEngine:
             pos = self._last.step if self._last else self.next_step
             seq = self.journal.append("note", {"text": text, "die": list(pos.die) if pos else None,
                                                "site": pos.site if pos else None})
-            self._emit(NoteAdded(seq, text))
+            self._emit(NoteAdded(seq=seq, text=text))
 
     def goto(self, die: tuple[int, int], reason: str = "") -> None:
         """docs/engine.md: PROBING only; the die must be planned and have a site left."""
@@ -491,7 +397,7 @@ class FakeEngine:
             payload = {"die": list(die), **({"reason": reason} if reason else {})}
             seq = self.journal.append("goto", payload)
             self._walk_from = DIES.index(die) * len(SITES)
-            self._emit(JumpedToDie(seq, die, reason))
+            self._emit(JumpedToDie(seq=seq, die=die, reason=reason))
 
     def request_drift(self) -> None:
         self._drift_due = True
@@ -509,4 +415,4 @@ class FakeEngine:
                 completed = self._phase is Phase.DONE
             seq = self.journal.append("session-closed", {"completed": completed, "summary": {}})
             self.journal.closed = True
-            self._emit(SessionClosed(seq, completed))
+            self._emit(SessionClosed(seq=seq, completed=completed))
