@@ -17,7 +17,6 @@ long session is reopened); the journal stays importable without numpy.
 from __future__ import annotations
 
 import errno
-import fcntl
 import hashlib
 import json
 import math
@@ -31,6 +30,15 @@ from pathlib import Path, PurePosixPath
 from typing import Any, Iterator
 
 import orjson  # reading only (2-3x faster than json on long journals); lines are written by json
+
+try:  # POSIX
+    import fcntl
+except ImportError:  # Windows (many probe-station PCs): byte-range lock instead of flock
+    fcntl = None  # type: ignore[assignment]
+    import msvcrt
+
+# Flags that only some systems have: close-on-exec (POSIX), binary mode (Windows).
+_OPEN_FLAGS = getattr(os, "O_CLOEXEC", 0) | getattr(os, "O_BINARY", 0)
 
 JOURNAL_NAME = "journal.jsonl"
 DATA_DIR = "data"
@@ -169,7 +177,20 @@ def _write_all(fd: int, data: bytes) -> None:
         view = view[n:]
 
 
+def _lock_fd(fd: int) -> None:
+    """Exclusive, non-blocking lock of an open file; OSError if another process holds it."""
+    if fcntl is not None:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    else:
+        os.lseek(fd, 0, os.SEEK_SET)
+        msvcrt.locking(fd, msvcrt.LK_NBLCK, 1)
+
+
 def _fsync_dir(path: Path) -> None:
+    """Make a rename or a new name in ``path`` durable (POSIX). Windows cannot open
+    a folder for fsync; NTFS journals its metadata itself."""
+    if not hasattr(os, "O_DIRECTORY"):
+        return
     fd = os.open(path, os.O_RDONLY | os.O_DIRECTORY)
     try:
         os.fsync(fd)
@@ -294,7 +315,7 @@ class Journal:
         journal = cls(folder, cls._lock(folder))
         try:
             (folder / DATA_DIR).mkdir()
-            fd = os.open(journal.path, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_APPEND | os.O_CLOEXEC, 0o644)
+            fd = os.open(journal.path, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_APPEND | _OPEN_FLAGS, 0o644)
             os.fsync(fd)
             journal._fd = fd
             _fsync_dir(folder)
@@ -321,21 +342,25 @@ class Journal:
     @staticmethod
     def _lock(folder: Path) -> int:
         try:
-            fd = os.open(folder / LOCK_NAME, os.O_RDWR | os.O_CREAT | os.O_CLOEXEC, 0o644)
+            fd = os.open(folder / LOCK_NAME, os.O_RDWR | os.O_CREAT | _OPEN_FLAGS, 0o644)
         except OSError as exc:
             raise JournalError(f"{folder}: cannot open the session for writing: {_os_reason(exc)}") from None
         try:
-            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            _lock_fd(fd)
         except OSError:
             try:
-                holder = os.pread(fd, 32, 0).decode("ascii", "replace").strip() or "?"
+                os.lseek(fd, 0, os.SEEK_SET)
+                holder = os.read(fd, 32).decode("ascii", "replace").strip() or "?"
+            except OSError:  # Windows refuses to read a locked range
+                holder = "?"
             finally:
                 os.close(fd)
             raise JournalError(f"{folder}: the session is open for writing in another process "
                                f"(pid {holder}); close it there first") from None
         try:  # who holds it, for the message above; not needed for correctness
             os.ftruncate(fd, 0)
-            os.pwrite(fd, f"{os.getpid()}\n".encode(), 0)
+            os.lseek(fd, 0, os.SEEK_SET)
+            os.write(fd, f"{os.getpid()}\n".encode())
         except OSError:
             pass
         return fd
@@ -411,7 +436,7 @@ class Journal:
         self._count = len(events)
         self._last = events[-1] if events else None
         try:
-            self._fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | os.O_CLOEXEC)
+            self._fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | _OPEN_FLAGS)
         except OSError as exc:
             raise JournalError(f"{self.path}: cannot open for appending: {_os_reason(exc)}") from None
         self._recover(data, torn_from)
@@ -562,7 +587,7 @@ class Journal:
             for target, data in files:
                 self._temp_n += 1
                 temp = target.with_name(f".{target.name}.tmp-{os.getpid()}-{self._temp_n}")
-                fd = os.open(temp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_CLOEXEC, 0o644)
+                fd = os.open(temp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | _OPEN_FLAGS, 0o644)
                 temps.append(temp)
                 try:
                     _write_all(fd, data)
