@@ -52,6 +52,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    import signal
     import threading
 
     from drivers.simbench import FaultSpecError, SimBench
@@ -68,15 +69,20 @@ def run(args: argparse.Namespace) -> int:
         vna, prober = bench.start()
     except OSError as exc:
         raise UsageError(f"cannot listen on 127.0.0.1: {exc.strerror or exc}") from None
-    try:  # from the first line printed on, Ctrl-C means "stop the bench"
+    # Ctrl-C (and a supervisor's SIGTERM) stop the bench, even where the shell that
+    # started us in the background left SIGINT ignored (Python then never raises
+    # KeyboardInterrupt).
+    stop = threading.Event()
+    for sig in (signal.SIGINT, signal.SIGTERM):
+        signal.signal(sig, lambda *_: stop.set())
+    try:
         print(f"vna     {vna}")
         print(f"prober  {prober}")
         print(f"wafer   {bench.chip.wafer_id} (lot {bench.chip.lot}, chip {bench.chip.name}), "
               f"{len(bench.chip.dies())} dies, seed {args.seed}")
         print("Ctrl-C stops the bench.", flush=True)
-        threading.Event().wait()
-    except KeyboardInterrupt:
-        pass
+        while not stop.wait(0.2):
+            pass
     finally:
         bench.stop()
     print("simulated bench stopped")
