@@ -136,11 +136,16 @@ class BenchScreen(Screen):
 
     # ---------------------------------------------------------------- shared keys
 
+    def ask_then_record(self, action: str, question: str, presets) -> None:
+        """Ask for a reason (a digit picks a preset), then journal ``action`` with it;
+        nothing is recorded when the operator backs out."""
+        def done(reason: str | None) -> None:
+            if reason:
+                self.record(action, reason)
+        self.app.push_screen(AskReason(question, presets), done)
+
     def action_note(self) -> None:
-        def done(text: str | None) -> None:
-            if text:
-                self.record("note", text)
-        self.app.push_screen(AskReason("Note for the journal (at the current die and site):", NOTE_PRESETS), done)
+        self.ask_then_record("note", "Note for the journal (at the current die and site):", NOTE_PRESETS)
 
     def action_toggle_polar(self) -> None:
         for chart in self.query(SmithChart):

@@ -17,7 +17,6 @@ from probelog.verdicts import CheckResult, Verdict, overall
 from tui.widgets.bench_footer import BenchFooter
 from tui.messages import CalibrationSolved, ChecksFinished, LandingStarted, SweepMeasured
 from tui.screens.base import BenchScreen, reflections, turns_matter
-from tui.screens.dialogs import AskReason
 from tui.widgets.logbook import Logbook
 from tui.widgets.smith import SmithChart
 from tui.widgets.sweep_plot import SweepPlot
@@ -128,10 +127,7 @@ class Calibrate(BenchScreen):
         self.record("cal-accept")
 
     def action_redo_cal(self) -> None:
-        def done(reason: str | None) -> None:
-            if reason:
-                self.record("cal-redo", reason)
-        self.app.push_screen(AskReason("Why redo the calibration?", REDO_PRESETS), done)
+        self.ask_then_record("cal-redo", "Why redo the calibration?", REDO_PRESETS)
 
     # ---------------------------------------------------------------- messages
 

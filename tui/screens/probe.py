@@ -15,7 +15,7 @@ from textual.widgets import Header
 from tui.widgets.bench_footer import BenchFooter
 from tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
-from tui.screens.dialogs import AskReason, Confirm
+from tui.screens.dialogs import Confirm
 from tui.widgets.die_map import DieMap
 from tui.widgets.logbook import Logbook
 from tui.widgets.smith import SmithChart
@@ -174,16 +174,10 @@ class Probe(BenchScreen):
         self.measure_next("drift")
 
     def action_skip(self) -> None:
-        def done(reason: str | None) -> None:
-            if reason:
-                self.record("skip", reason)
-        self.app.push_screen(AskReason(f"Skip {self._target()}? Why:", SKIP_PRESETS), done)
+        self.ask_then_record("skip", f"Skip {self._target()}? Why:", SKIP_PRESETS)
 
     def action_recalibrate(self) -> None:
-        def done(reason: str | None) -> None:
-            if reason:
-                self.record("recalibrate", reason)
-        self.app.push_screen(AskReason("Recalibrate now? Why:", RECAL_PRESETS), done)
+        self.ask_then_record("recalibrate", "Recalibrate now? Why:", RECAL_PRESETS)
 
     def action_toggle_map(self) -> None:
         side, die_map = self.query_one("#side"), self.query_one("#map", DieMap)
