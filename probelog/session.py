@@ -27,6 +27,7 @@ from typing import Any, Callable
 import skrf
 
 from probelog.bench import Bench, Die
+from probelog.touchstone_out import network_to_touchstone
 from probelog.verdicts import CheckResult, Verdict, overall
 
 CAUTIONS = """\
@@ -884,12 +885,12 @@ class Engine:
         nets = {"raw": raw} if cor is None else {"raw": raw, "corrected": cor}
         base = self._unused(base, [f"-{'raw' if what == 'raw' else 'cor'}.s{n.nports}p" for what, n in nets.items()])
         items = [(f"{base}-{'raw' if what == 'raw' else 'cor'}.s{n.nports}p",
-                  _touchstone_bytes(n, self._header(n, step, what))) for what, n in nets.items()]
+                  network_to_touchstone(n, self._header(n, step, what))) for what, n in nets.items()]
         refs = self.journal.write_files(items)
         return {what: {"path": str(ref.path), "sha256": ref.sha256} for what, ref in zip(nets, refs)}
 
     def _write_net(self, stem: str, ntwk: skrf.Network, step: Step, what: str) -> dict:
-        data = _touchstone_bytes(ntwk, self._header(ntwk, step, what))
+        data = network_to_touchstone(ntwk, self._header(ntwk, step, what))
         ref = self.journal.write_file(f"{self._unused(stem, [f'.s{ntwk.nports}p'])}.s{ntwk.nports}p", data)
         return {"path": str(ref.path), "sha256": ref.sha256}
 
@@ -1237,19 +1238,6 @@ def _pairs(required) -> list[tuple[str, str]]:
     return out
 
 
-def _touchstone_bytes(ntwk: skrf.Network, header: dict) -> bytes:
-    """Touchstone v1.1 bytes with the header as '!' comment lines (self-describing)."""
-    try:
-        from probelog.touchstone_out import network_to_touchstone
-    except ModuleNotFoundError:  # the shared writer is not in this build: skrf's, same header
-        import tempfile
-
-        with tempfile.TemporaryDirectory() as tmp:
-            ntwk.write_touchstone("sweep", dir=tmp, form="ri")
-            body = (Path(tmp) / f"sweep.s{ntwk.nports}p").read_bytes()
-        head = "".join(f"! {k}: {v}\n" for k, v in header.items())
-        return f"! probelog sweep\n{head}".encode() + body
-    return network_to_touchstone(ntwk, header)
 
 
 def _journal_events(journal):

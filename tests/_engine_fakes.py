@@ -266,11 +266,3 @@ class FakeJournal:
     def close(self):
         self.closed = True
 
-
-def touchstone_bytes(ntwk, header):
-    import os
-    import tempfile
-
-    with tempfile.TemporaryDirectory() as tmp:
-        ntwk.write_touchstone("x", dir=tmp)
-        return open(os.path.join(tmp, f"x.s{ntwk.nports}p"), "rb").read()

@@ -10,15 +10,7 @@ import probelog.session as S
 from probelog.headless import run_headless
 from probelog.journal import Journal
 from probelog.plan import load_plan_text
-from tests._engine_fakes import fake_bench, plan_text, touchstone_bytes
-
-
-@pytest.fixture(autouse=True)
-def _touchstone(monkeypatch):
-    try:
-        import probelog.touchstone_out  # noqa: F401
-    except ModuleNotFoundError:
-        monkeypatch.setattr(S, "_touchstone_bytes", touchstone_bytes)
+from tests._engine_fakes import fake_bench, plan_text
 
 
 def test_lifted_tip_is_relanded_then_given_up_and_the_run_goes_on(tmp_path):

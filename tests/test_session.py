@@ -12,15 +12,7 @@ import probelog.session as S
 from probelog.plan import load_plan_text
 from probelog.verdicts import Verdict
 from probelog.journal import Journal, verify
-from tests._engine_fakes import fake_bench, ideal, plan_text, touchstone_bytes
-
-
-@pytest.fixture(autouse=True)
-def _touchstone(monkeypatch):
-    try:
-        import probelog.touchstone_out  # noqa: F401
-    except ModuleNotFoundError:  # until the Touchstone writer lands, plain skrf output
-        monkeypatch.setattr(S, "_touchstone_bytes", touchstone_bytes)
+from tests._engine_fakes import fake_bench, ideal, plan_text
 
 
 def make(tmp_path, **kw):

@@ -14,18 +14,10 @@ import pytest
 import probelog.session as S
 from probelog.journal import Journal, verify
 from probelog.plan import load_plan_text
-from tests._engine_fakes import fake_bench, plan_text, touchstone_bytes
+from tests._engine_fakes import fake_bench, plan_text
 
 DIES = ((1, 1), (2, 1), (1, 2))
 SITES = ("ln-a", "ln-b")
-
-
-@pytest.fixture(autouse=True)
-def _touchstone(monkeypatch):
-    try:
-        import probelog.touchstone_out  # noqa: F401
-    except ModuleNotFoundError:
-        monkeypatch.setattr(S, "_touchstone_bytes", touchstone_bytes)
 
 
 def start(tmp_path, **kw):
