@@ -128,10 +128,7 @@ def compute_missing_metrics(index: SessionIndex, networks: dict[int, Any]) -> in
     ``probelog.lines`` (single-line ABCD extraction at the plan's length, at the
     same few frequencies the engine journals). Rows that already carry metrics
     are left alone. Returns the number of rows filled."""
-    try:
-        from probelog.lines import default_frequencies, line_metrics, metrics_at
-    except ImportError:  # the core without the line module: metrics stay as journaled
-        return 0
+    from probelog.lines import default_frequencies, line_metrics, metrics_at
     from probelog.manifest import flatten_metrics
 
     names: dict[str, None] = {}

@@ -121,14 +121,12 @@ def walk_chain(lines: list[bytes]) -> ChainStatus:
 
 
 def chain_status(session_dir: Path, journal: Journal) -> ChainStatus:
-    """Chain status from ``probelog.journal.verify`` when the engine's journal
-    module provides it, else from :func:`walk_chain`. The last hash is always
-    our own SHA-256 of the last line so it means the same thing either way."""
+    """Chain status from ``probelog.journal.verify``, with the intact count and
+    the last line's SHA-256 from :func:`walk_chain` over the lines this bundle
+    copies (a torn tail left aside by the reader is not part of them)."""
+    from probelog.journal import verify
+
     own = walk_chain(journal.lines)
-    try:
-        from probelog.journal import verify  # type: ignore[attr-defined]
-    except ImportError:
-        return own
     try:
         report = verify(Path(session_dir))
     except Exception as exc:  # a verifier crash must not stop the bundle

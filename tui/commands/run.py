@@ -60,11 +60,8 @@ def run(args: argparse.Namespace) -> int:
         return build_bench(args, probe_ids, confirm)
 
     if not args.headless:
-        try:
-            from tui.app import run_app
-        except ModuleNotFoundError:
-            print("probelog run: the UI is not available in this build; use --headless", file=sys.stderr)
-            return 2
+        from tui.app import run_app
+
         return run_app(engine_factory)
 
     from probelog.headless import run_headless
