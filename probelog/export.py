@@ -17,6 +17,8 @@ from __future__ import annotations
 
 import hashlib
 import os
+import shutil
+import tempfile
 from contextlib import nullcontext
 from pathlib import Path
 from typing import Any, Callable
@@ -169,17 +171,37 @@ def _load_cal_networks(index: SessionIndex, root: Path) -> dict[str, Any]:
     return out
 
 
+class DamagedSessionError(BundleError):
+    """The session fails its integrity checks; ``problems`` says how. No bundle
+    is written unless the caller allows a damaged one."""
+
+    def __init__(self, message: str, problems: list[str]) -> None:
+        super().__init__(message)
+        self.problems = problems
+
+
+def _damage(chain, integrity: list[str]) -> list[str]:
+    """One sentence per reason the session is not what the bench wrote."""
+    return ([f"journal chain: {chain.problem or 'broken'}"] if not chain.ok else []) + list(integrity)
+
+
 def export_bundle(session_dir: Path | str, out_dir: Path | str | None = None, progress: bool = True,
-                  metric: str | None = None) -> Path:
+                  metric: str | None = None, allow_damaged: bool = False,
+                  damage: list[str] | None = None) -> Path:
     """Write the analyst bundle of a session folder and return its path.
 
     ``metric`` is the manifest column drawn on the wafer map (default: a line Z0
-    if there are line metrics, else retries). Raises SessionFormatError for a
-    folder that is not a session, BundleError for an unusable ``out_dir`` or an
-    unknown metric.
-    """
-    from probelog.report import ReportInputs, build_report, numeric_columns
+    if there are line metrics, else retries). The bundle is built in a hidden
+    temporary folder beside ``out_dir`` and renamed into place at the end, so a
+    failure leaves no half bundle in the way of a rerun.
 
+    A damaged session (broken chain, torn last line, a data file missing or not
+    matching its journaled SHA-256, an unreadable sweep) raises
+    DamagedSessionError unless ``allow_damaged``; then the bundle is written
+    (its README and report say BROKEN) and the reasons are appended to
+    ``damage`` when a list is given. Raises SessionFormatError for a folder that
+    is not a session, BundleError for an unusable ``out_dir`` or an unknown metric.
+    """
     session_dir = Path(session_dir)
     journal = read_journal(session_dir)
     out = Path(out_dir) if out_dir is not None else default_out_dir(session_dir)
@@ -187,6 +209,34 @@ def export_bundle(session_dir: Path | str, out_dir: Path | str | None = None, pr
         raise BundleError(f"{out}: the bundle must not go inside the session folder")
     if out.exists() and (not out.is_dir() or any(out.iterdir())):
         raise BundleError(f"{out}: exists and is not an empty folder; choose another --out")
+    try:
+        out.parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
+    except OSError as exc:
+        raise BundleError(f"{out.parent}: cannot write the bundle there ({exc.strerror or exc})") from None
+    try:
+        problems = _write_bundle(session_dir, journal, tmp, progress, metric)
+        if problems and not allow_damaged:
+            raise DamagedSessionError(
+                f"{session_dir}: the session is damaged ({problems[0]}"
+                + (f"; and {len(problems) - 1} more problem(s)" if len(problems) > 1 else "")
+                + "); no bundle written; run `probelog verify` on it, or pass --allow-damaged "
+                  "to export it anyway", problems)
+        if out.exists():
+            out.rmdir()  # checked empty above; os.replace onto a folder needs it gone on Windows
+        os.replace(tmp, out)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)  # our own unfinished copy, never the session
+        raise
+    if damage is not None:
+        damage.extend(problems)
+    return out
+
+
+def _write_bundle(session_dir: Path, journal, out: Path, progress: bool, metric: str | None) -> list[str]:
+    """Fill the (new, empty) folder ``out``; returns the session's damage (see _damage)."""
+    from probelog.report import ReportInputs, build_report, numeric_columns
+
     index = index_session(journal)
     chain = chain_status(session_dir, journal)
     data_dir = session_dir / "data"
@@ -200,14 +250,13 @@ def export_bundle(session_dir: Path | str, out_dir: Path | str | None = None, pr
             tid = bar.add_task(label, total=max(total, 1))
             return lambda: bar.advance(tid)
 
-        # parse (from the session) and validate before writing anything
+        # parse (from the session) and validate before copying anything
         networks, unread = load_networks(index, session_dir, task("reading sweeps", len(index.rows)))
         compute_missing_metrics(index, networks)
         if metric is not None and metric not in numeric_columns(index):
             names = numeric_columns(index)
             shown = ", ".join(names[:20]) + (f" and {len(names) - 20} more" if len(names) > 20 else "")
             raise BundleError(f"--metric {metric}: not a numeric manifest column; choose one of: {shown}")
-        out.mkdir(parents=True, exist_ok=True)
         (out / JOURNAL_NAME).write_bytes(journal.path.read_bytes())
         hashes = _copy_tree(data_dir, out, task("copying data", n_files)) if data_dir.is_dir() else {}
         integrity = check_files(index, hashes) + unread
@@ -220,7 +269,7 @@ def export_bundle(session_dir: Path | str, out_dir: Path | str | None = None, pr
         step()
         (out / "report.html").write_text(page, encoding="utf-8")
         step()
-    return out
+    return _damage(chain, integrity)
 
 
 def _progress(enabled: bool):
@@ -233,5 +282,5 @@ def _progress(enabled: bool):
                     TimeElapsedColumn(), console=Console(stderr=True), transient=False)
 
 
-__all__ = ["export_bundle", "default_out_dir", "BundleError", "SessionFormatError", "check_files",
+__all__ = ["export_bundle", "default_out_dir", "BundleError", "DamagedSessionError", "SessionFormatError", "check_files",
            "load_networks", "compute_missing_metrics"]

@@ -430,8 +430,28 @@ def write_manifest_csv(path: Path, index: SessionIndex) -> Path:
         w = csv.DictWriter(fh, fieldnames=cols, extrasaction="ignore", lineterminator="\n")
         w.writeheader()
         for row in index.rows:
-            w.writerow({c: ("" if row.get(c) is None else row.get(c)) for c in cols})
+            w.writerow({c: csv_cell(row.get(c)) for c in cols})
     return path
+
+
+# A text cell a spreadsheet would run as a formula (OWASP "CSV Injection": =, +, -,
+# @, tab, carriage return) is written with a leading single quote, which every
+# common spreadsheet reads as "this is text". Numbers, and text that is a plain
+# number (-3.5), are left alone.
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def csv_cell(value: Any) -> Any:
+    """One manifest cell: "" for None, text that could start a formula prefixed
+    with ``'``, everything else unchanged."""
+    if value is None:
+        return ""
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        try:
+            float(value)
+        except ValueError:
+            return "'" + value
+    return value
 
 
 _INT_COLS = {"seq", "die_col", "die_row", "landing", "retries", "files_ok"}
@@ -451,7 +471,7 @@ def read_manifest_csv(path: Path) -> list[dict]:
                     row[k] = int(float(v))
                 elif k in _TEXT_COLS or k.endswith(("_file", "_sha256")) or (
                         k.startswith("chk_") and not k.endswith(("_value", "_limit", "_at_hz"))):
-                    row[k] = v
+                    row[k] = v[1:] if v[:1] == "'" and csv_cell(v[1:]) == v else v  # undo csv_cell
                 else:
                     try:
                         row[k] = float(v)
@@ -481,6 +501,10 @@ def readme_text(index: SessionIndex, chain: ChainStatus) -> str:
         "  `data/cal/<cal_id>/` (raw standards and the saved cal set).",
         "- `journal.jsonl`: the session journal, unchanged (format: docs/journal-events.md).",
         "- `report.html`: self-contained report (plots embedded), open in any browser.",
+        "- Text cells of `manifest.csv` that begin with `=`, `+`, `-`, `@`, a tab or a",
+        "  carriage return (a note, a site name) start with an added `'` so a spreadsheet",
+        "  shows them as text instead of running them as a formula; numbers are unchanged.",
+        "  `probelog.open_session` strips that one `'` again; strip it yourself elsewhere.",
         "- In Python: `import probelog; s = probelog.open_session('<this folder>')`,",
         "  then `s.manifest`, `s.to_pandas()`, `s.network_sets['<site>']`.",
         "",

@@ -20,7 +20,9 @@ from typing import Any, Iterable
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.collections import LineCollection
+from matplotlib import rc_context
 from matplotlib.figure import Figure
+from matplotlib.text import Text
 
 from probelog.manifest import ChainStatus, SessionIndex, check_column
 
@@ -47,6 +49,10 @@ class ReportInputs:
 
 
 def _png(fig: Figure, alt: str) -> str:
+    # Every label comes from the session (wafer ids, site names, line types):
+    # plain text, never mathtext, so a '$' in an id is drawn, not parsed.
+    for text in fig.findobj(Text):
+        text.set_parse_math(False)
     FigureCanvasAgg(fig)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=80)
@@ -562,9 +568,11 @@ def build_report(inp: ReportInputs) -> str:
         ("summary", "Summary"), ("wafer", "Wafer map"), ("calibration", "Calibration"),
         ("overlays", "Overlays"), ("lines", "Line metrics"), ("checks", "Checks"),
         ("retries", "Retries"), ("notes", "Notes")))
-    body = "".join((_header(inp), f"<nav>{nav}</nav>", _summary(inp), _integrity(inp), _wafer_map(inp),
-                    _calibration(inp), _overlays(inp), _line_trends(inp), _checks(inp),
-                    _retries_and_notes(inp)))
+    # A user's matplotlibrc with text.usetex would hand '$', '_' or '%' in a label to TeX.
+    with rc_context({"text.usetex": False, "text.parse_math": False}):
+        body = "".join((_header(inp), f"<nav>{nav}</nav>", _summary(inp), _integrity(inp), _wafer_map(inp),
+                        _calibration(inp), _overlays(inp), _line_trends(inp), _checks(inp),
+                        _retries_and_notes(inp)))
     title = html.escape(f"probelog report {inp.index.opened.get('session_id', '')}")
     return (f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>{title}</title>"
             f"<style>{CSS}</style></head><body>{body}</body></html>")

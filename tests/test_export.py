@@ -399,7 +399,7 @@ def test_tampered_data_and_journal_show_in_the_bundle(session, tmp_path):
     lines = (copy / "journal.jsonl").read_bytes().split(b"\n")
     lines[1] = lines[1].replace(b"wrist strap", b"wrist-strap")
     (copy / "journal.jsonl").write_bytes(b"\n".join(lines))
-    out = export_bundle(copy, tmp_path / "b", progress=False)
+    out = export_bundle(copy, tmp_path / "b", progress=False, allow_damaged=True)
     row = next(r for r in manifest_rows(out) if (r["die_col"], r["site"]) == ("5", "ln-cpw-m9-r1-l500"))
     assert row["files_ok"] == "0"
     page = (out / "report.html").read_text()
