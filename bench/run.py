@@ -174,7 +174,7 @@ def bench_landing(quick: bool):
             engine = calibrated_engine(rig, plan, tmp / "sessions")
             assert engine.phase in (Phase.PROBING, Phase.DECIDING), engine.phase
 
-            def engine_landing():
+            def engine_landing(engine=engine):
                 engine.measure()
                 engine.reland("bench")
 
@@ -318,11 +318,11 @@ def bench_journal(quick: bool):
         fd = os.open(tmp / "bare.jsonl", os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o644)
         for _ in range(rounds):
             t0 = time.perf_counter()
-            for i in range(per):
+            for _i in range(per):
                 j.append("landing", payload)
             t_ours += time.perf_counter() - t0
             t0 = time.perf_counter()
-            for i in range(per):
+            for _i in range(per):
                 os.write(fd, template)
                 os.fsync(fd)
             t_bare += time.perf_counter() - t0
@@ -340,7 +340,7 @@ def bench_journal(quick: bool):
         p = dict(payload, raw=ref.to_json())
         # fsync per event is what the engine does; for building a big journal fast
         # we still go through append, only fewer times in quick mode
-        for i in range(10_000 if not quick else 2_000):
+        for _i in range(10_000 if not quick else 2_000):
             j.append("landing", p)
         j.close()
         t_verify = best_of(lambda: verify(tmp / "bench-verify"), 3)

@@ -49,7 +49,7 @@ class InterlockedProber(ABC):
         ids = tuple(str(p) for p in probe_ids)
         if not ids or len(set(ids)) != len(ids):
             raise ValueError(f"probe ids must be a non-empty list of distinct names, got {list(probe_ids)!r}")
-        self._touchdowns = {p: 0 for p in ids}
+        self._touchdowns = dict.fromkeys(ids, 0)
         self._in_contact = False
         self._position: tuple[Die, Offset] | None = None
 

@@ -183,7 +183,7 @@ class Agreement:
         with path.open("w", newline="", encoding="utf-8") as fh:
             w = csv.writer(fh)
             w.writerow(["f_hz", "bound_s11", "bound_s12", "bound_s21", "bound_s22"])
-            for f, b in zip(self.f_hz, self.bound.reshape(-1, 4)):
+            for f, b in zip(self.f_hz, self.bound.reshape(-1, 4), strict=False):
                 w.writerow([repr(float(f))] + [f"{x:.9g}" for x in b])
         return path
 

@@ -305,7 +305,7 @@ def solve(method: str, measured: Mapping[str, skrf.Network], kit: CalKit,
     std = _gather(method, measured, kit)
     f_hz = std["thru"].f
     if switch_terms is not None:
-        for name, st in zip(("forward", "reverse"), switch_terms):
+        for name, st in zip(("forward", "reverse"), switch_terms, strict=False):
             if st.frequency != std["thru"].frequency:
                 raise CalibrationError(f"{method}: the {name} switch term was swept "
                                        f"differently from the standards")
@@ -322,7 +322,7 @@ def solve(method: str, measured: Mapping[str, skrf.Network], kit: CalKit,
     extras: dict[str, Any] = {}
     if method == "lrrm":
         extras["lrrm_load_l_h"] = float(np.mean(np.real(cal.solved_l)))
-    standards = {role: site for role, site in required_sites(method, kit)}
+    standards = dict(required_sites(method, kit))
     return CalSet(cal_id=cal_id, method=method, cal=cal, kit_name=kit.name,
                   standards=standards, extras=extras)
 

@@ -171,7 +171,7 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
             failed = outcome.verdict is Verdict.FAIL
             if step.kind is StepKind.CAL_STANDARD:
                 line = f"cal {step.standard:<8} {_where(step)} L{step.landing} {outcome.verdict.value}"
-                if retry(failed, lambda: engine.reland(f"headless: {_fmt_checks(outcome)}")):
+                if retry(failed, lambda o=outcome: engine.reland(f"headless: {_fmt_checks(o)}")):
                     printer.line(f"{line} -> re-land ({_fmt_checks(outcome)})")
                 else:
                     printer.line(f"{line} {_fmt_checks(outcome)}".rstrip())
@@ -196,7 +196,7 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
                 engine.accept()
                 fails.pop(key, None)
                 printer.line(line)
-            elif retry(failed, lambda: engine.reland(f"headless: {_fmt_checks(outcome)}")):
+            elif retry(failed, lambda o=outcome: engine.reland(f"headless: {_fmt_checks(o)}")):
                 printer.line(f"{line} -> re-land ({_fmt_checks(outcome)})")
             else:
                 engine.give_up(f"headless: still failing after {retries} re-landings: {_fmt_checks(outcome)}")

@@ -594,7 +594,7 @@ class Journal:
                     os.fsync(fd)
                 finally:
                     os.close(fd)
-            for temp, (target, _) in zip(temps, files):
+            for temp, (target, _) in zip(temps, files, strict=False):
                 os.replace(temp, target)
         except BaseException:
             for temp in temps:  # our own unfinished temporary files, never a data file

@@ -223,7 +223,7 @@ def flatten_metrics(metrics: Any) -> dict[str, float | None]:
             if k == fkey:
                 continue
             if isinstance(v, list) and len(v) == len(freqs):
-                for f, x in zip(freqs, v):
+                for f, x in zip(freqs, v, strict=False):
                     out.update({f"{n}@{_freq_label(f)}": y for n, y in _scalar_items(k, x)})
             else:
                 out.update(dict(_scalar_items(k, v)))

@@ -110,7 +110,7 @@ def _metric_kind(col: str) -> str | None:
     base = col.split("@")[0].lower()
     if base.endswith("_im") or "imag" in base:
         return None
-    if base.startswith("z0") or base.startswith("zc"):
+    if base.startswith(("z0", "zc")):
         return "z0"
     if base.startswith(("alpha", "loss", "atten")):
         return "loss"
@@ -437,7 +437,7 @@ def _line_trends(inp: ReportInputs) -> str:
     fig = Figure(figsize=(12, 3.6 * math.ceil(len(panels) / 2)))
     families = sorted({(r["line_type"], r.get("metal") or "") for r in lines})
     markers = "osD^v<>p*h"
-    for i, (kind, col) in enumerate(panels):
+    for i, (_kind, col) in enumerate(panels):
         ax = fig.add_subplot(math.ceil(len(panels) / 2), 2, i + 1)
         for j, fam in enumerate(families):
             pts = [(r["w_over_g"], r[col]) for r in lines

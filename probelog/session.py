@@ -253,7 +253,7 @@ class Engine:
         self._active_cal: CalOutcome | None = None
         self._finished: dict[tuple[Die, str], str] = {}  # accept | skip | give-up
         self._landings: dict[tuple[Die, str], int] = {}
-        self._touchdowns: dict[str, int] = {p: 0 for p in self._probe_ids()}
+        self._touchdowns: dict[str, int] = dict.fromkeys(self._probe_ids(), 0)
         self._last_outcome: LandingOutcome | None = None
         self._previous: dict[tuple[Die, str], skrf.Network] = {}
         self._drift_ref: tuple[skrf.Network, int] | None = None
@@ -675,7 +675,7 @@ class Engine:
             return None
         self._switch_terms = tuple(terms)
         return [self._write_net(f"{stem}-switch-{d}", t, step, f"switch term {d}")
-                for d, t in zip(("gf", "gr"), terms)]
+                for d, t in zip(("gf", "gr"), terms, strict=False)]
 
     def _switch_networks(self) -> tuple | None:
         terms = self._switch_terms
@@ -829,7 +829,7 @@ class Engine:
             self._instrument_failed("prober", exc)
         counted = {p: after.get(p, 0) - before.get(p, 0) for p in after}
         if not any(v > 0 for v in counted.values()):
-            counted = {p: 1 for p in self._touchdowns}  # prober keeps no count: one per landing
+            counted = dict.fromkeys(self._touchdowns, 1)  # prober keeps no count: one per landing
         for p, n in counted.items():
             self._touchdowns[p] = self._touchdowns.get(p, 0) + max(n, 0)
         try:
@@ -887,7 +887,7 @@ class Engine:
         items = [(f"{base}-{'raw' if what == 'raw' else 'cor'}.s{n.nports}p",
                   network_to_touchstone(n, self._header(n, step, what))) for what, n in nets.items()]
         refs = self.journal.write_files(items)
-        return {what: {"path": str(ref.path), "sha256": ref.sha256} for what, ref in zip(nets, refs)}
+        return {what: {"path": str(ref.path), "sha256": ref.sha256} for what, ref in zip(nets, refs, strict=False)}
 
     def _write_net(self, stem: str, ntwk: skrf.Network, step: Step, what: str) -> dict:
         data = network_to_touchstone(ntwk, self._header(ntwk, step, what))

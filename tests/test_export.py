@@ -26,7 +26,7 @@ import skrf
 from skrf.media import DefinedGammaZ0
 
 import probelog
-from probelog.export import BundleError, export_bundle
+from probelog.export import export_bundle
 from probelog.manifest import SessionFormatError, flatten_metrics, read_journal, walk_chain
 from tui.cli import main as cli_main
 
@@ -36,8 +36,8 @@ FREQ = skrf.Frequency(1, 67, 67, "GHz")
 
 # Two line families with known physics (invented values in the range of on-chip CPW).
 FAMILIES = {
-    "ln-cpw-m9-r1-l500": dict(z0=62.0, alpha=25.0, eps_eff=5.9, width_um=6.0, gap_um=12.0),
-    "ln-cpw-m9-r2-l500": dict(z0=47.0, alpha=18.0, eps_eff=6.2, width_um=10.0, gap_um=6.0),
+    "ln-cpw-m9-r1-l500": {"z0": 62.0, "alpha": 25.0, "eps_eff": 5.9, "width_um": 6.0, "gap_um": 12.0},
+    "ln-cpw-m9-r2-l500": {"z0": 47.0, "alpha": 18.0, "eps_eff": 6.2, "width_um": 10.0, "gap_um": 6.0},
 }
 LENGTH_M = 500e-6
 

@@ -269,7 +269,7 @@ def test_cli_prints_resources_and_stops_on_ctrl_c():
             code = proc.wait(timeout=30)
         except subprocess.TimeoutExpired:
             proc.kill()
-            raise AssertionError(f"simbench did not stop on Ctrl-C; stderr: {proc.communicate()[1][-2000:]}")
+            raise AssertionError(f"simbench did not stop on Ctrl-C; stderr: {proc.communicate()[1][-2000:]}") from None
         assert code == 0, proc.communicate()[1][-2000:]
     finally:
         if proc.poll() is None:

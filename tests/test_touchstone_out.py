@@ -5,8 +5,10 @@ import json
 import numpy as np
 import pytest
 import skrf
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
-from probelog.touchstone_out import network_to_touchstone, read_header
+from probelog.touchstone_out import _fast_range, _scientific, network_to_touchstone, read_header
 
 HEADER = {
     "session": "20261201-224501-QF2611-W07",
@@ -55,13 +57,13 @@ def test_option_line_and_header_come_first(tmp_path):
     data = network_to_touchstone(_random_network(2, 5, seed=3), HEADER)
     text = data.decode("ascii")
     lines = text.splitlines()
-    option = next(i for i, l in enumerate(lines) if l.startswith("#"))
+    option = next(i for i, ln in enumerate(lines) if ln.startswith("#"))
     assert lines[option].split()[:5] == ["#", "Hz", "S", "RI", "R"]
     assert float(lines[option].split()[5]) == 50.0
-    assert all(l.startswith("! probelog ") for l in lines[: len(HEADER)])
+    assert all(ln.startswith("! probelog ") for ln in lines[: len(HEADER)])
     # 2-port v1.1 data lines: f, then S11, S21, S12, S22 as re/im pairs (9 columns).
-    data_lines = [l for l in lines[option + 1:] if l and not l.startswith("!")]
-    assert len(data_lines) == 5 and all(len(l.split()) == 9 for l in data_lines)
+    data_lines = [ln for ln in lines[option + 1:] if ln and not ln.startswith("!")]
+    assert len(data_lines) == 5 and all(len(ln.split()) == 9 for ln in data_lines)
 
 
 def test_header_reads_back():
@@ -91,10 +93,6 @@ def test_unusable_inputs_are_refused():
         network_to_touchstone(ntwk, {})
 
 
-from hypothesis import given, settings
-from hypothesis import strategies as st
-
-from probelog.touchstone_out import _fast_range, _scientific
 
 _IN_RANGE = st.one_of(st.just(0.0), st.floats(1e-300, 1e300, exclude_min=True, exclude_max=True),
                       st.floats(-1e300, -1e-300, exclude_min=True, exclude_max=True))

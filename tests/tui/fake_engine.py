@@ -141,7 +141,7 @@ class FakeEngine:
         self._active: CalOutcome | None = None
         self._finished: dict[tuple, str] = {}
         self._landings: dict[tuple, int] = {}
-        self._touch = {p: 0 for p in PROBES}
+        self._touch = dict.fromkeys(PROBES, 0)
         self._last: LandingOutcome | None = None
         self._drift_due = False
         self._walk_from = 0  # index into the site sequence; goto() moves it
@@ -304,7 +304,7 @@ class FakeEngine:
             if any(n not in self._std for n, _, _ in STANDARDS):
                 raise RuntimeError("standards not measured yet")
             cal_id = f"cal{self._cal_n}"
-            seq = self.journal.append("cal-computed", {"cal_id": cal_id, "method": "solt", "standards": [s for _, s, _ in STANDARDS],
+            self.journal.append("cal-computed", {"cal_id": cal_id, "method": "solt", "standards": [s for _, s, _ in STANDARDS],
                                                        "file": None, "ok": True, "message": "solved"})
             stub = good_network("open-stub", 800.0)
             step = Step(StepKind.VERIFY, CAL_DIE, "ver-ostub", "open-stub", 1, 0, 1)

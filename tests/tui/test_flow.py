@@ -212,7 +212,7 @@ def test_footer_greys_keys_in_place_as_textual_reckons_them(tmp_path):
             await pilot.pause()
             after = footer_state(app)
             assert all(shown == reckoned for _, shown, reckoned in after)
-            assert dict((k, on) for k, on, _ in after)["a"] and not dict((k, on) for k, on, _ in before)["a"]
+            assert {k: on for k, on, _ in after}["a"] and not {k: on for k, on, _ in before}["a"]
             assert list(app.screen.query(FooterKey)) == widgets  # greyed in place, not rebuilt
             await quit_session(pilot)
 

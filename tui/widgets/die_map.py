@@ -105,7 +105,7 @@ class DieMap(Widget, can_focus=True):
         self.refresh()
 
     def _titles(self) -> None:
-        counts = {k: 0 for k in STATUS_MARK}
+        counts = dict.fromkeys(STATUS_MARK, 0)
         for s in self.status.values():
             counts[s] = counts.get(s, 0) + 1
         self.border_title = f"die map · {self.colour_by}"

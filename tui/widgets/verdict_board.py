@@ -135,7 +135,7 @@ class VerdictBoard(Vertical):
             self.border_title = "verdict"
             return
         word, sym, bigsym, _ = _LOOK[verdict]
-        rows = [s + "  " + w for s, w in zip(render_big(bigsym), render_big(word))]
+        rows = [s + "  " + w for s, w in zip(render_big(bigsym), render_big(word), strict=False)]
         big.update("\n".join(rows), layout=False)
         self.border_title = f"verdict: {sym} {word}"
 
