@@ -64,7 +64,7 @@ def test_the_environment_was_installed_from_the_lock():
             wrong.append(f"{name}: locked {version}, installed {installed}")
     if wrong and not (ROOT / ".venv" / ".installed").exists():
         pytest.skip("not running in the make-built .venv: " + "; ".join(wrong[:3]))
-    assert not wrong, "\n".join(wrong)
+    assert not wrong, "the venv differs from requirements.lock; reinstall it with `make .venv/.installed`:\n" + "\n".join(wrong)
 
 
 def test_a_range_the_lock_breaks_is_reported():
