@@ -34,10 +34,20 @@ format spec after the colon is yours to choose. Operations marked optional may
 be left out: the driver then does without (e.g. no ``fetch_frequencies`` means
 the frequencies are computed from the sweep settings as a linear sweep).
 
+Every command string is ONE command: printable ASCII without ``;`` (the SCPI
+separator of several commands on a line), newline or other control characters,
+before and after its placeholders are filled. A string that would send a second
+command (e.g. ``"SOURce:POWer {dbm:.4g}\nSOURce:POWer 4"``) could bypass the
+plan's power limit, so the file is refused when it loads. VNA setters (``set_*``
+and the other commands that expect no reply) must not hold a ``?`` either: an
+unread reply would shift every later answer. Terminations are ``"\n"``,
+``"\r\n"`` or ``"\r"``.
+
 Reply conventions the drivers expect (our generic ones; adapt your instrument's
 replies by choosing the right query): ``next_error`` answers ``<code>,"<text>"``
 with code 0 for an empty queue (SCPI-1999); ``wait_complete`` answers ``1``;
-``fetch_sparams`` answers float64 values as a REAL,64 block (or comma-separated
+the ``query_*`` read-backs answer one number (Hz, points, dBm) such as
+``1e9``, ``+1.0000E+09`` or ``201``; ``fetch_sparams`` answers float64 values as a REAL,64 block (or comma-separated
 ASCII), for each frequency point the parameters in ``[data]`` order, real then
 imaginary; ``query_position`` answers ``col,row,x_um,y_um``; ``query_z``
 answers one of the words in ``[replies]`` ``contact`` / ``separated`` (prober;
@@ -70,6 +80,13 @@ VNA_COMMANDS: dict[str, tuple[frozenset[str], bool]] = {
     "set_points": (frozenset({"n"}), True),
     "set_ifbw_hz": (frozenset({"hz"}), True),
     "set_power_dbm": (frozenset({"dbm"}), True),
+    # Read-back of what the instrument really set (see drivers/vna.py): a VNA that
+    # clamps, rounds or ignores a setting is caught before it sweeps.
+    "query_start_hz": (frozenset(), True),
+    "query_stop_hz": (frozenset(), True),
+    "query_points": (frozenset(), True),
+    "query_ifbw_hz": (frozenset(), False),
+    "query_power_dbm": (frozenset(), True),
     "set_ports": (frozenset({"ports"}), False),
     "trigger_single": (frozenset(), True),
     "format_binary": (frozenset(), False),
@@ -94,6 +111,10 @@ PROBER_COMMANDS: dict[str, tuple[frozenset[str], bool]] = {
 
 # Sample values used to try every command string once while validating.
 _SAMPLES = {"hz": 1.0e9, "dbm": -10.0, "n": 201, "ports": "1,2", "col": 3, "row": 4, "x_um": 200.0, "y_um": 600.0}
+
+# Operations that expect a reply; every other VNA operation is a setter or an action.
+_QUERY_PREFIXES = ("identify", "wait_complete", "next_error", "query_", "fetch_")
+_TERMINATIONS = ("\n", "\r\n", "\r")
 
 _SECTIONS = {
     "vna": {"dialect", "io", "commands", "data"},
@@ -137,7 +158,32 @@ class Dialect:
             raise DialectError(
                 f"{self.path.name}: [commands] has no {operation!r}, which this step needs"
             ) from None
-        return template.format(**values)
+        out = template.format(**values)
+        problem = one_command_problem(out)
+        if problem:  # a Dialect built without load_dialect(), or a value carrying text
+            raise DialectError(f"{self.path.name}: [commands] {operation} would send {out!r}, which {problem}; "
+                               "refusing to send it", resource=str(self.path))
+        return out
+
+
+def one_command_problem(text: str) -> str | None:
+    """Why ``text`` is not exactly one instrument command, or None when it is.
+
+    One command is printable ASCII (0x20..0x7e) without ``;``: a newline, a
+    carriage return or a ``;`` would let one dialect string send a second command
+    (SCPI-1999 vol. 1 ch. 6: ``;`` separates program message units, the newline
+    ends the message).
+    """
+    for ch in text:
+        if ch == "\n":
+            return "holds a newline (a second command)"
+        if ch == "\r":
+            return "holds a carriage return (a second command)"
+        if ch == ";":
+            return "holds ';' (a second command)"
+        if not " " <= ch <= "~":
+            return f"holds the character {ch!r} (only printable ASCII is sent)"
+    return None
 
 
 def resolve(name_or_path: str | Path, kind: Kind) -> Path:
@@ -205,6 +251,9 @@ def _validate(doc: dict, text: str, path: Path, kind: Kind) -> Dialect:
     for k in ("read_termination", "write_termination"):
         if k in io and not isinstance(io[k], str):
             raise _fail(path, f"[io] {k}{_line_of(text, k)} must be a string such as \"\\n\"")
+    for k in ("read_termination", "write_termination"):
+        if k in io and io[k] not in _TERMINATIONS:
+            raise _fail(path, f"[io] {k}{_line_of(text, k)} must be \"\\n\", \"\\r\\n\" or \"\\r\", got {io[k]!r}")
     timeout = io.get("timeout_ms", 10000)
     if isinstance(timeout, bool) or not isinstance(timeout, int) or timeout <= 0:
         raise _fail(path, f"[io] timeout_ms{_line_of(text, 'timeout_ms')} must be a positive integer (ms), got {timeout!r}")
@@ -232,9 +281,17 @@ def _validate(doc: dict, text: str, path: Path, kind: Kind) -> Dialect:
         if got != want:
             raise _fail(path, f"{where} must use placeholders {sorted(want) or 'none'}, found {sorted(got) or 'none'}")
         try:
-            template.format(**_SAMPLES)
+            filled = template.format(**_SAMPLES)
         except (ValueError, TypeError, KeyError) as exc:
             raise _fail(path, f"{where}: placeholder format does not fit the value ({exc})") from None
+        # the template and what it sends (a format spec's fill could add a ';')
+        problem = one_command_problem(template) or one_command_problem(filled)
+        if problem:
+            raise _fail(path, f"{where} {problem}: one command a string (a second one could bypass "
+                        "the plan's limits)")
+        if kind == "vna" and not op.startswith(_QUERY_PREFIXES) and "?" in template:
+            raise _fail(path, f"{where} expects no reply but holds '?': a query here would leave its "
+                        "answer unread and shift every later reply")
 
     data_order: dict[int, list[str]] = {}
     if kind == "vna":

@@ -17,6 +17,8 @@ exception                   when
 ``InstrumentError``         the instrument's error queue reported errors
 ``ReplyError``              a text reply we cannot parse (position, *OPC?)
 ``PowerLimitError``         requested source power above the plan's limit
+``SettingMismatch``         the instrument reads back another setting than
+                            was asked (clamped power, rounded IF bandwidth)
 ``InterlockError``          an XY move was asked for while probes are down
 ``OperatorDeclined``        the operator answered "no" to a manual-prober prompt
 ``DialectError``            a dialect TOML file is missing keys, has unknown
@@ -106,6 +108,23 @@ class ReplyError(DriverError):
 
 class PowerLimitError(DriverError, ValueError):
     """Requested RF source power (dBm) above the plan's limit; nothing was sent."""
+
+
+class SettingMismatch(DriverError):
+    """The instrument reads back a setting other than the one just sent: it
+    clamped, rounded or ignored it. Nothing is swept with such settings.
+
+    ``setting`` names it ("source power"), ``asked`` and ``got`` are numbers in
+    ``unit`` ("dBm", "Hz", "points").
+    """
+
+    def __init__(self, message: str, *, setting: str, asked: float, got: float, unit: str,
+                 resource: str = "") -> None:
+        super().__init__(message, resource=resource)
+        self.setting = setting
+        self.asked = asked
+        self.got = got
+        self.unit = unit
 
 
 class InterlockError(DriverError):

@@ -6,7 +6,11 @@ Command words come from a dialect file (:mod:`drivers.dialect`); the generic one
 One sweep: (``set_ports``) -> ``trigger_single`` -> ``wait_complete`` (``*OPC?``,
 with a timeout stretched to the expected sweep time) -> ``fetch_sparams`` as an
 IEEE 488.2 REAL,64 block (byte order from the dialect) -> (``fetch_frequencies``)
--> Network with 50 ohm ports. The error queue is read after every operation; any
+-> Network with 50 ohm ports. After settings are sent each is read back
+(``query_*``; :mod:`drivers.readback`) and a difference refuses the sweep
+(:class:`~drivers.errors.SettingMismatch`). A contact pre-check
+(:meth:`ScpiVna.precheck_sweep`) sweeps a few points at a wide IF bandwidth,
+then restores the plan's settings and reads them back. The error queue is read after every operation; any
 entry raises :class:`~drivers.errors.InstrumentError` quoting the instrument.
 
 If the instrument rejects ``format_binary`` (an error-queue entry) the driver
@@ -15,7 +19,7 @@ parsed as comma-separated ASCII numbers in any case.
 
 Errors (all in :mod:`drivers.errors`): InstrumentTimeout, ConnectionLost,
 InstrumentUnreachable, MalformedBlock / ShortBlock, InstrumentError,
-PowerLimitError (raised before anything is sent). After a transport error call
+PowerLimitError (raised before anything is sent), SettingMismatch. After a transport error call
 :meth:`ScpiVna.reopen`; the settings last applied are sent again.
 """
 
@@ -27,7 +31,9 @@ import numpy as np
 import skrf
 
 from drivers.dialect import Dialect, load_dialect
-from drivers.errors import DriverError, InstrumentError, PowerLimitError, ReplyError
+from drivers.errors import DriverError, InstrumentError, PowerLimitError, ReplyError, SettingMismatch
+from drivers.readback import SETTINGS as READBACK
+from drivers.readback import changed_fields, fmt, parse_number, same
 from drivers.visa import Link, LinkSettings, open_resource
 from probelog.bench import SweepSettings
 
@@ -100,7 +106,10 @@ class ScpiVna:
         self.resource = self.link.resource
         self.settings: SweepSettings | None = None
         self._power_limit_dbm: float | None = None
-        self._freq: np.ndarray | None = None  # stimulus of the current settings
+        # stimulus (Hz) of each settings swept since the last configure: the plan's
+        # and the pre-check's, each fetched once
+        self._freqs: dict[SweepSettings, np.ndarray] = {}
+        self._last: SweepSettings | None = None  # settings of the last sweep
         self._ports: int | None = None  # port set last sent with set_ports
         self.ascii_data = False
         try:
@@ -122,27 +131,30 @@ class ScpiVna:
             self.link.command(self.dialect.command("clear_status"))
         self._wait_complete()
         self.settings = None
-        self._freq = None
+        self._freqs.clear()
+        self._last = None
         self._ports = None
 
     def configure(self, settings: SweepSettings, power_limit_dbm: float) -> None:
-        """Apply a linear sweep (Hz, points, IF bandwidth Hz, power dBm).
+        """Apply a linear sweep (Hz, points, IF bandwidth Hz, power dBm), then read
+        every setting back.
 
-        The power check happens before any command is sent.
+        The power check happens before any command is sent. A setting the
+        instrument reads back differently (clamped, rounded, ignored) raises
+        :class:`~drivers.errors.SettingMismatch` and leaves the VNA unconfigured:
+        :meth:`sweep` refuses until a configure succeeds.
         """
         check_power(settings, power_limit_dbm)
         check_settings(settings)
-        d, link = self.dialect, self.link
-        link.command(d.command("set_start_hz", hz=settings.start_hz))
-        link.command(d.command("set_stop_hz", hz=settings.stop_hz))
-        link.command(d.command("set_points", n=settings.points))
-        link.command(d.command("set_ifbw_hz", hz=settings.ifbw_hz))
-        link.command(d.command("set_power_dbm", dbm=settings.power_dbm))
+        self.settings = None  # nothing is swept until the read-back agrees
+        self._freqs.clear()
+        self._last = None
+        self._ports = None
+        self._apply(settings, None)
         self._set_data_format()
+        self._read_back(settings, power_limit_dbm, None)
         self.settings = settings
         self._power_limit_dbm = power_limit_dbm
-        self._freq = None
-        self._ports = None
 
     def sweep(self, ports: int = 2) -> skrf.Network:
         """Trigger one sweep, wait for it, fetch S for ``ports`` (1 or 2) ports."""
@@ -150,22 +162,31 @@ class ScpiVna:
             raise ValueError(f"ports must be 1 or 2, got {ports}")
         if self.settings is None:
             raise DriverError(f"{self.resource}: configure() the VNA before the first sweep", resource=self.resource)
-        d, link = self.dialect, self.link
-        if d.has("set_ports") and self._ports != ports:
-            link.command(d.command("set_ports", ports=",".join(str(p) for p in range(1, ports + 1))))
-            self._ports = ports
-        trigger = d.command("trigger_single")
-        link.write(trigger)  # its errors are read with the *OPC? below
-        self._wait_complete(self._sweep_timeout_ms(ports), after=trigger)
-        order = d.data_order[ports]
-        fetch = d.command("fetch_sparams")
-        values = link.query_values(fetch, d.byte_order)
-        link.check_errors(fetch)
-        if self._freq is None:  # the stimulus only changes with configure()
-            self._freq = self._frequencies()
-        f = self._freq
-        s = sparams_from_values(values, f.size, order)
-        return skrf.Network(frequency=skrf.Frequency.from_f(f, unit="Hz"), s=s, z0=Z0_OHM, name="sweep")
+        return self._acquire(self.settings, ports)
+
+    def precheck_sweep(self, settings: SweepSettings, ports: int = 2) -> skrf.Network:
+        """A short contact pre-check sweep with ``settings`` (few points, wide IF
+        bandwidth), then the configured settings restored and all read back.
+
+        Only the settings that differ are sent, each way; both are read back
+        before anything is swept with them. The plan's power limit of the last
+        :meth:`configure` applies. On any error the VNA counts as unconfigured.
+        """
+        if ports not in (1, 2):
+            raise ValueError(f"ports must be 1 or 2, got {ports}")
+        base, limit = self.settings, self._power_limit_dbm
+        if base is None or limit is None:
+            raise DriverError(f"{self.resource}: configure() the VNA before the first sweep", resource=self.resource)
+        check_power(settings, limit)
+        check_settings(settings)
+        self.settings = None  # neither the plan's nor verified until read back
+        self._apply(settings, base)
+        self._read_back(settings, limit, base)
+        net = self._acquire(settings, ports)
+        self._apply(base, settings)
+        self._read_back(base, limit, None)
+        self.settings = base
+        return net
 
     def switch_terms(self) -> tuple[skrf.Network, skrf.Network] | None:
         """Switch terms (gamma_f = a2/b2, gamma_r = a1/b1) of the last 2-port sweep as
@@ -178,7 +199,10 @@ class ScpiVna:
         cmd = d.command("fetch_switch_terms")
         values = self.link.query_values(cmd, d.byte_order)
         self.link.check_errors(cmd)
-        f = self._freq if self._freq is not None else self._frequencies()
+        last = self._last or self.settings
+        f = self._freqs.get(last)
+        if f is None:
+            f = self._frequencies(last)
         if values.size != 4 * f.size:
             raise ReplyError(f"{self.resource}: {cmd!r} returned {values.size} numbers, expected {4 * f.size} "
                              f"(2 complex per point for {f.size} points)", resource=self.resource)
@@ -194,13 +218,73 @@ class ScpiVna:
     def reopen(self) -> None:
         """Open the connection again (after a timeout or a drop) and re-apply settings."""
         self.link.reopen()
-        self._freq = None
+        self._freqs.clear()
+        self._last = None
         self._ports = None
         self.idn = self.identify()
         if self.settings is not None and self._power_limit_dbm is not None:
             self.configure(self.settings, self._power_limit_dbm)
 
     # -- helpers
+
+    def _apply(self, settings: SweepSettings, previous: SweepSettings | None) -> None:
+        """Send the settings that differ from ``previous`` (all when None)."""
+        d, link = self.dialect, self.link
+        values = {"start_hz": ("set_start_hz", "hz"), "stop_hz": ("set_stop_hz", "hz"), "points": ("set_points", "n"),
+                  "ifbw_hz": ("set_ifbw_hz", "hz"), "power_dbm": ("set_power_dbm", "dbm")}
+        for name in changed_fields(previous, settings):
+            op, key = values[name]
+            link.command(d.command(op, **{key: getattr(settings, name)}))
+
+    def _read_back(self, settings: SweepSettings, power_limit_dbm: float, previous: SweepSettings | None) -> None:
+        """Ask the instrument for each setting that differs from ``previous`` (all
+        when None; the power always); raise SettingMismatch on a difference."""
+        d, link = self.dialect, self.link
+        fields = set(changed_fields(previous, settings)) | {"power_dbm"}
+        for st in READBACK:
+            if st.field not in fields or not d.has(st.operation):
+                continue  # query_ifbw_hz is optional
+            cmd = d.command(st.operation)
+            reply = link.query(cmd)
+            link.check_errors(cmd)
+            got = parse_number(reply)
+            if got is None:
+                raise ReplyError(f"{self.resource}: {cmd!r} answered {reply!r}, expected one number "
+                                 f"({st.unit})", resource=self.resource)
+            asked = float(getattr(settings, st.field))
+            if st.field == "power_dbm" and got > power_limit_dbm:
+                raise SettingMismatch(
+                    f"{self.resource}: the VNA reads back a source power of {fmt(got, st.unit)} ({cmd!r}), above "
+                    f"the plan's limit of {fmt(power_limit_dbm, st.unit)} (asked {fmt(asked, st.unit)}); not "
+                    "sweeping. The port may be sourcing it now: switch RF off at the instrument and follow "
+                    "your lab's rules before landing again", setting=st.name, asked=asked, got=got,
+                    unit=st.unit, resource=self.resource)
+            if not same(st.field, asked, got):
+                raise SettingMismatch(
+                    f"{self.resource}: asked for {st.name} {fmt(asked, st.unit)}, the VNA reads back "
+                    f"{fmt(got, st.unit)} ({cmd!r}); not sweeping with a setting the instrument clamped, "
+                    "rounded or ignored (choose a value it supports, or check its dialect file)",
+                    setting=st.name, asked=asked, got=got, unit=st.unit, resource=self.resource)
+
+    def _acquire(self, settings: SweepSettings, ports: int) -> skrf.Network:
+        """Trigger, wait, fetch one sweep that the instrument runs with ``settings``."""
+        d, link = self.dialect, self.link
+        if d.has("set_ports") and self._ports != ports:
+            link.command(d.command("set_ports", ports=",".join(str(p) for p in range(1, ports + 1))))
+            self._ports = ports
+        trigger = d.command("trigger_single")
+        link.write(trigger)  # its errors are read with the *OPC? below
+        self._wait_complete(self._sweep_timeout_ms(settings, ports), after=trigger)
+        order = d.data_order[ports]
+        fetch = d.command("fetch_sparams")
+        values = link.query_values(fetch, d.byte_order)
+        link.check_errors(fetch)
+        f = self._freqs.get(settings)
+        if f is None:  # the stimulus changes only with the settings
+            f = self._freqs[settings] = self._frequencies(settings)
+        self._last = settings
+        s = sparams_from_values(values, f.size, order)
+        return skrf.Network(frequency=skrf.Frequency.from_f(f, unit="Hz"), s=s, z0=Z0_OHM, name="sweep")
 
     def _wait_complete(self, timeout_ms: int | None = None, after: str | None = None) -> None:
         cmd = self.dialect.command("wait_complete")
@@ -209,11 +293,10 @@ class ScpiVna:
             raise ReplyError(f"{self.resource}: {cmd!r} answered {reply!r}, expected 1", resource=self.resource)
         self.link.check_errors(after or cmd)
 
-    def _sweep_timeout_ms(self, ports: int) -> int:
+    def _sweep_timeout_ms(self, settings: SweepSettings, ports: int) -> int:
         # Rough sweep time: points / IFBW per receiver pass, one pass per driven port,
         # doubled for retrace and settling; never below the I/O timeout.
-        s = self.settings
-        est_ms = 2.0 * ports * s.points / s.ifbw_hz * 1000.0
+        est_ms = 2.0 * ports * settings.points / settings.ifbw_hz * 1000.0
         return int(max(self._link_settings.timeout_ms, self._link_settings.timeout_ms + est_ms))
 
     def _set_data_format(self) -> None:
@@ -235,8 +318,7 @@ class ScpiVna:
         if d.has(op):
             link.command(d.command(op))
 
-    def _frequencies(self) -> np.ndarray:
-        s = self.settings
+    def _frequencies(self, s: SweepSettings) -> np.ndarray:
         if self.dialect.has("fetch_frequencies"):
             cmd = self.dialect.command("fetch_frequencies")
             f = self.link.query_values(cmd, self.dialect.byte_order)
