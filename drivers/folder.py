@@ -113,6 +113,7 @@ class FolderVna:
         self.cancel = cancel or threading.Event()
         self.match_settings = match_settings
         self.settings: SweepSettings | None = None
+        self._power_limit_dbm = float("-inf")
         self._seen = self._listing()
 
     def identify(self) -> str:
@@ -123,6 +124,7 @@ class FolderVna:
         check_power(settings, power_limit_dbm)
         check_settings(settings)
         self.settings = settings
+        self._power_limit_dbm = power_limit_dbm
 
     def sweep(self, ports: int = 2) -> skrf.Network:
         """Wait for a new file, validate it, archive it, return it."""
@@ -143,6 +145,14 @@ class FolderVna:
             path.replace(dest)
         net.name = path.stem
         return net
+
+    def precheck_sweep(self, settings: SweepSettings, ports: int = 2) -> None:
+        """No contact pre-check here: the operator would have to save a second file
+        per landing, slower than the full sweep it is meant to spare. The engine
+        goes straight to the full sweep; the power check still applies."""
+        if self.settings is not None:
+            check_power(settings, self._power_limit_dbm)
+        return None
 
     def close(self) -> None:
         self.cancel.set()

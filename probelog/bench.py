@@ -29,6 +29,36 @@ class SweepSettings:
     power_dbm: float = -10.0
 
 
+PRECHECK_POINTS = 11
+"""Default point count of a contact pre-check sweep: a handful spread over the band."""
+PRECHECK_IFBW_HZ = 100e3
+"""Default IF bandwidth of a pre-check sweep (Hz): wide, so it takes milliseconds.
+Trace noise grows as sqrt(IFBW), about 10x that of 1 kHz (common practice, no
+source): far below what tells a tip in the air from a landed one."""
+
+
+def precheck_settings(plan: SweepSettings, points: int = PRECHECK_POINTS,
+                      ifbw_hz: float = PRECHECK_IFBW_HZ) -> SweepSettings:
+    """The stimulus of a contact pre-check for a plan's sweep.
+
+    The plan's band (start_hz .. stop_hz, Hz) and source power (dBm), ``points``
+    points (never more than the plan's) and an IF bandwidth of ``ifbw_hz`` Hz
+    (never narrower than the plan's). When a count between ``points`` and twice
+    that puts every pre-check point on the plan's own grid (``(plan.points - 1)``
+    divisible by ``(n - 1)``), the smallest such count is taken, so the
+    calibration's raw standards are known at exactly those frequencies.
+    """
+    if points < 2:
+        raise ValueError(f"a pre-check sweep needs at least 2 points, got {points}")
+    if not ifbw_hz > 0:
+        raise ValueError(f"pre-check IF bandwidth must be > 0 Hz, got {ifbw_hz:g}")
+    n = min(points, plan.points)
+    on_grid = [k for k in range(n, min(2 * n, plan.points) + 1) if (plan.points - 1) % (k - 1) == 0]
+    if on_grid:
+        n = on_grid[0]
+    return SweepSettings(plan.start_hz, plan.stop_hz, n, max(ifbw_hz, plan.ifbw_hz), plan.power_dbm)
+
+
 @runtime_checkable
 class Vna(Protocol):
     """A vector network analyzer that returns raw (uncorrected by us) sweeps."""
@@ -40,6 +70,13 @@ class Vna(Protocol):
 
     def sweep(self, ports: int = 2) -> skrf.Network:
         """One triggered sweep, waited for, fetched as a Network (1 or 2 ports)."""
+
+    def precheck_sweep(self, settings: SweepSettings, ports: int = 2) -> skrf.Network | None:
+        """A short contact pre-check sweep with ``settings`` (see
+        :func:`precheck_settings`), then the settings last given to
+        :meth:`configure` restored exactly and read back, ready for the full
+        sweep. Must refuse power above the configured limit. None when this VNA
+        cannot sweep on its own (the operator saves each file): no pre-check."""
 
     def close(self) -> None: ...
 

@@ -282,3 +282,28 @@ def test_cli_bad_fault_spec_is_one_clear_line():
                           cwd=ROOT, capture_output=True, text=True, timeout=60)
     assert proc.returncode == 2
     assert proc.stderr.strip().count("\n") == 0 and "no site named 'nowhere'" in proc.stderr
+
+
+def test_sweep_time_setting_presets_and_the_instrument_clock():
+    # issue 15: 1,001 points at 100 Hz IF bandwidth take about 10 s a direction
+    assert SimBench(seed=1, sweep_time_scale="realistic").vna.sweep_time_scale == 1.0
+    assert SimBench(seed=1, sweep_time_scale="off").vna.sweep_time_scale == 0.0
+    with pytest.raises(ValueError, match="expected a scale >= 0, 'off' or 'realistic'"):
+        SimBench(seed=1, sweep_time_scale="fast")
+    with SimBench(seed=1) as bench:  # off: instant, yet every sweep's modelled time is counted
+        rm = pyvisa.ResourceManager("@py")
+        vna = rm.open_resource(bench.resources[0], read_termination="\n", write_termination="\n", timeout=2000)
+        vna.write(VNA["set_points"].format(n=1001))
+        vna.write(VNA["set_ifbw_hz"].format(hz=100))
+        vna.write(VNA["set_ports"].format(ports="1"))
+        t = time.monotonic()
+        vna.write(VNA["trigger_single"])
+        assert vna.query(VNA["wait_complete"]) == "1"
+        first = bench.instrument_seconds
+        vna.write(VNA["trigger_single"])
+        assert vna.query(VNA["wait_complete"]) == "1"
+        waited = time.monotonic() - t
+        vna.close()
+    assert 10.0 < first < 10.1  # including the re-arm after the stimulus change
+    assert bench.instrument_seconds - first < first  # the same stimulus again: no re-arm
+    assert waited < first  # nothing near 10 s was really waited

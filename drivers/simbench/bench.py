@@ -23,6 +23,7 @@ from drivers.simbench.prober_instrument import SimProber
 from drivers.simbench.server import InstrumentServer
 from drivers.simbench.simulator import Simulator
 from drivers.simbench.state import BenchState
+from drivers.simbench.sweeptime import sweep_time_scale as sweep_time_scale_of
 from drivers.simbench.vna_instrument import SimVna
 
 
@@ -44,9 +45,16 @@ def resource(port: int) -> str:
 
 class SimBench:
     """The simulated bench. Ports 0 pick free ports; ``start()`` returns the VISA
-    resource strings (VNA, prober)."""
+    resource strings (VNA, prober).
 
-    def __init__(self, seed: int = 0, sweep_time_scale: float = 0.0, fault_rate: float = 0.0,
+    ``sweep_time_scale`` is the bench's sweep-time setting
+    (:mod:`drivers.simbench.sweeptime`): "off" / 0 (default: sweeps are instant,
+    for tests and the demo), "realistic" / 1 (``*OPC?`` waits the modelled time,
+    e.g. 10 s a direction for 1,001 points at 100 Hz IF bandwidth), or a scale
+    between. :attr:`instrument_seconds` is the modelled time of all sweeps so far.
+    """
+
+    def __init__(self, seed: int = 0, sweep_time_scale: float | str = 0.0, fault_rate: float = 0.0,
                  faults: list[Fault | str] | tuple = (), drift_acceleration: float = 1.0,
                  vna_port: int = 0, prober_port: int = 0, slow_reply_s: float = 12.0,
                  variation: bool = True, chip_file: Path | str = CHIP_FILE) -> None:
@@ -63,7 +71,7 @@ class SimBench:
         self.clock = SimClock(drift_acceleration)
         self.sim = Simulator(self.chip, seed, variation)
         self.state = BenchState(self.chip, self.faults)
-        self.vna = SimVna(self.sim, self.state, self.clock, seed, sweep_time_scale, slow_reply_s)
+        self.vna = SimVna(self.sim, self.state, self.clock, seed, sweep_time_scale_of(sweep_time_scale), slow_reply_s)
         self.prober = SimProber(self.state)
         self._ports = (vna_port, prober_port)
         self._servers: list[InstrumentServer] = []
@@ -103,6 +111,12 @@ class SimBench:
         self.stop()
 
     # ---- control and inspection ------------------------------------------------------------
+    @property
+    def instrument_seconds(self) -> float:
+        """Modelled sweep time (s) of every sweep so far, at full scale: the simulated
+        instrument clock (wall time of the software around it is not included)."""
+        return self.vna.modelled_s
+
     def _checked(self, fault: Fault) -> Fault:
         if fault.die is not None and not self.chip.on_map(fault.die):
             raise FaultSpecError(f"fault {fault}: die {fault.die[0]},{fault.die[1]} is not on the "

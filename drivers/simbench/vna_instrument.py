@@ -18,6 +18,7 @@ from drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError, integer, 
 from drivers.simbench.server import Reply, run_line
 from drivers.simbench.simulator import Simulator
 from drivers.simbench.state import BenchState
+from drivers.simbench.sweeptime import SweepTimeModel
 
 F_MIN, F_MAX = 10e6, 110e9  # Hz
 POINTS_MAX = 20001
@@ -33,11 +34,19 @@ def ieee_block(payload: bytes) -> bytes:
 
 
 class SimVna:
+    """The simulated VNA. ``sweep_time_scale``: how much of the modelled sweep time
+    (:mod:`drivers.simbench.sweeptime`) ``*OPC?`` really waits; ``modelled_s`` and
+    ``sweeps`` count the full modelled time and the sweeps, whatever the scale."""
+
     def __init__(self, sim: Simulator, state: BenchState, clock: SimClock, seed: int = 0,
                  sweep_time_scale: float = 0.0, slow_reply_s: float = 12.0,
-                 stopping: threading.Event | None = None) -> None:
+                 stopping: threading.Event | None = None, time_model: SweepTimeModel | None = None) -> None:
         self.sim, self.state, self.clock = sim, state, clock
         self.sweep_time_scale = sweep_time_scale
+        self.time_model = time_model or SweepTimeModel()
+        self.modelled_s = 0.0
+        self.sweeps = 0
+        self._armed: tuple | None = None  # stimulus of the last sweep
         self.slow_reply_s = slow_reply_s
         self.errors = ErrorQueue()
         self._rng = np.random.default_rng([seed, 404])
@@ -141,10 +150,16 @@ class SimVna:
             raise ScpiError(-224, f"byte order {','.join(args)!r}: NORMal or SWAPped")
 
     # ---- sweeping --------------------------------------------------------------------------
+    def _stimulus(self) -> tuple:
+        return (self.start, self.stop, self.points, self.ifbw, self.ports)
+
+    def _modelled_time(self) -> float:
+        """Seconds the next sweep takes on the model (unscaled)."""
+        return self.time_model.seconds(self.points, self.ifbw, len(self.ports), self._stimulus() != self._armed)
+
     def _sweep_time(self) -> float:
-        """Seconds: points / IFBW per direction plus settling, times the scale factor."""
-        per = self.points * (1.0 / self.ifbw + 20e-6) + 5e-3
-        return self.sweep_time_scale * per * len(self.ports)
+        """Seconds the next sweep really holds ``*OPC?``: the model times the scale."""
+        return self.sweep_time_scale * self._modelled_time()
 
     def _cmd_init(self, args) -> None:
         if self.start >= self.stop:
@@ -158,7 +173,11 @@ class SimVna:
         elif self.ports == (2,):
             s = s[:, 1:, 1:]
         self._data = (f, s)
-        self._done_at = time.monotonic() + self._sweep_time()
+        modelled = self._modelled_time()
+        self.modelled_s += modelled
+        self.sweeps += 1
+        self._armed = self._stimulus()
+        self._done_at = time.monotonic() + self.sweep_time_scale * modelled
 
     def _wait_sweep(self) -> None:
         left = self._done_at - time.monotonic()
