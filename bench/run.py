@@ -87,9 +87,9 @@ class SimRig:
     """The simulated bench with the real drivers, as `probelog run --bench sim` wires it."""
 
     def __init__(self, seed: int = 5):
-        from drivers.prober import ScpiProber
-        from drivers.simbench import SimBench
-        from drivers.vna import ScpiVna
+        from probelog.drivers.prober import ScpiProber
+        from probelog.drivers.simbench import SimBench
+        from probelog.drivers.vna import ScpiVna
         from probelog.bench import Bench
 
         self.sim = SimBench(seed=seed, fault_rate=0.0, sweep_time_scale=0.0)
@@ -197,7 +197,7 @@ def bench_landing(quick: bool):
 def bench_block(quick: bool):
     import pyvisa
 
-    from drivers.visa import LinkSettings, open_resource
+    from probelog.drivers.visa import LinkSettings, open_resource
 
     rig = SimRig()
     points = 10001
@@ -269,7 +269,7 @@ def _settings(points: int):
 
 
 def bench_checks(quick: bool):
-    from drivers.simbench import SimBench
+    from probelog.drivers.simbench import SimBench
     from probelog.checks import Limits, run_checks
 
     sim = SimBench(seed=3)

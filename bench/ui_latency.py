@@ -2,7 +2,7 @@
 
 (a) keypress to verdict: the real engine on the simulated bench (zero sweep time,
     real ScpiVna / ScpiProber over loopback), driven through Textual's Pilot. The
-    simulated bench runs in its own process (``python -m tui simbench``), as real
+    simulated bench runs in its own process (``python -m probelog.tui simbench``), as real
     instruments do: in-process, its replies would queue for the UI's GIL. The
     clock starts when the measure key is pressed and stops when the message that
     follows the verdict board's update is dispatched (``message_hook``: the board
@@ -11,7 +11,7 @@
     ``engine.measure()`` call run headless in this process on the same
     out-of-process bench.
     Medians over ~20 landings, with an accept between landings.
-(b) start-up: ``python -m tui demo`` in a subprocess under a pty, from spawn to
+(b) start-up: ``python -m probelog.tui demo`` in a subprocess under a pty, from spawn to
     the first screen's text on the terminal.
 
 Timing targets live here, never in tests (STYLE.md / the brief).
@@ -63,9 +63,9 @@ def ui_landings(rig, root: Path, n: int) -> list[float]:
     from run import calibrated_engine
     from textual.worker import WorkerState
 
-    from tui.app import build_app
-    from tui.messages import ChecksFinished
-    from tui.screens.probe import Probe
+    from probelog.tui.app import build_app
+    from probelog.tui.messages import ChecksFinished
+    from probelog.tui.screens.probe import Probe
 
     engine = calibrated_engine(rig, _plan(), root)
     marks: dict[str, float | None] = {"checks": None, "after": None}
@@ -122,7 +122,7 @@ def ui_landings(rig, root: Path, n: int) -> list[float]:
 
 
 def startup_seconds(root: Path, repeat: int) -> list[float]:
-    """Spawn ``python -m tui demo`` under a pty; seconds until the intake screen's text appears."""
+    """Spawn ``python -m probelog.tui demo`` under a pty; seconds until the intake screen's text appears."""
     import pty
     import select
     import signal
@@ -139,7 +139,7 @@ def startup_seconds(root: Path, repeat: int) -> list[float]:
         fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 40, 120, 0, 0))
         env = dict(os.environ, TERM="xterm-256color", COLUMNS="120", LINES="40")
         t0 = time.perf_counter()
-        proc = subprocess.Popen([sys.executable, "-m", "tui", "demo", "--dir", str(root)], cwd=ROOT,
+        proc = subprocess.Popen([sys.executable, "-m", "probelog.tui", "demo", "--dir", str(root)], cwd=ROOT,
                                 stdin=slave, stdout=slave, stderr=slave, env=env, start_new_session=True)
         os.close(slave)
         seen = b""
@@ -173,18 +173,18 @@ def startup_seconds(root: Path, repeat: int) -> list[float]:
 
 
 class ProcessRig:
-    """The simulated bench in its own process (``python -m tui simbench``), as a
+    """The simulated bench in its own process (``python -m probelog.tui simbench``), as a
     real VNA and prober are: their replies never wait for this process's GIL.
     Same attributes as bench/run.py's SimRig that the engine needs (``bench``)."""
 
     def __init__(self, seed: int = 5):
         import subprocess
 
-        from drivers.prober import ScpiProber
-        from drivers.vna import ScpiVna
+        from probelog.drivers.prober import ScpiProber
+        from probelog.drivers.vna import ScpiVna
         from probelog.bench import Bench
 
-        self.proc = subprocess.Popen([sys.executable, "-m", "tui", "simbench", "--seed", str(seed),
+        self.proc = subprocess.Popen([sys.executable, "-m", "probelog.tui", "simbench", "--seed", str(seed),
                                       "--fault-rate", "0"], cwd=ROOT, stdout=subprocess.PIPE,
                                      stderr=subprocess.PIPE, text=True)
         try:
@@ -242,5 +242,5 @@ def measure_ui(report, quick: bool) -> None:
     with tempfile.TemporaryDirectory() as tmp:
         starts = startup_seconds(Path(tmp), 2 if quick else 3)
     best = min(starts)
-    report("start-up to the first screen (python -m tui demo, pty)", f"{best:.2f} s (best of {len(starts)})",
+    report("start-up to the first screen (python -m probelog.tui demo, pty)", f"{best:.2f} s (best of {len(starts)})",
            "1.5 s budget", best / 1.5, "< 1.5 s", best < 1.5)

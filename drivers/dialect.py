@@ -62,7 +62,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
 
-from drivers.errors import DialectError
+from probelog.drivers.errors import DialectError
 
 DIALECT_DIR = Path(__file__).resolve().parent / "dialects"
 

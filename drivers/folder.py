@@ -12,11 +12,11 @@ as the sweep:
 - when ``match_settings`` is true and ``configure`` was called: the point count
   and the start / stop frequencies (Hz, 1 ppm tolerance) of the plan.
 
-A file that fails raises :class:`~drivers.errors.TouchstoneRejected` naming the
+A file that fails raises :class:`~probelog.drivers.errors.TouchstoneRejected` naming the
 file and what is wrong; it is left where it is. Accepted files are moved to the
 ``archive`` subfolder when one is named. No file in time raises
-:class:`~drivers.errors.InstrumentTimeout`; a set cancel event raises
-:class:`~drivers.errors.WaitCancelled`.
+:class:`~probelog.drivers.errors.InstrumentTimeout`; a set cancel event raises
+:class:`~probelog.drivers.errors.WaitCancelled`.
 """
 
 from __future__ import annotations
@@ -30,8 +30,8 @@ import numpy as np
 import skrf
 from skrf.frequency import InvalidFrequencyWarning
 
-from drivers.errors import InstrumentTimeout, TouchstoneRejected, WaitCancelled
-from drivers.vna import check_power, check_settings
+from probelog.drivers.errors import InstrumentTimeout, TouchstoneRejected, WaitCancelled
+from probelog.drivers.vna import check_power, check_settings
 from probelog.bench import SweepSettings
 
 SUFFIXES = {".s1p": 1, ".s2p": 2}

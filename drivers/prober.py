@@ -2,7 +2,7 @@
 
 The interlock (:class:`InterlockedProber`): no XY move while the probes are, or
 may be, in contact, whatever the caller does. ``move_to`` raises
-:class:`~drivers.errors.InterlockError` unless the last completed operation was a
+:class:`~probelog.drivers.errors.InterlockError` unless the last completed operation was a
 successful ``separate``; a ``contact`` or ``separate`` that fails part-way
 leaves the driver assuming contact (the safe side), so only a successful
 ``separate`` unlocks XY moves again. Drivers that can ask the stage (SCPI) also
@@ -29,9 +29,9 @@ from abc import ABC, abstractmethod
 from pathlib import Path
 from typing import Callable, Sequence
 
-from drivers.dialect import Dialect, load_dialect
-from drivers.errors import DriverError, InterlockError, OperatorDeclined, ReplyError
-from drivers.visa import Link, LinkSettings, open_resource
+from probelog.drivers.dialect import Dialect, load_dialect
+from probelog.drivers.errors import DriverError, InterlockError, OperatorDeclined, ReplyError
+from probelog.drivers.visa import Link, LinkSettings, open_resource
 from probelog.bench import Die
 
 Offset = tuple[float, float]

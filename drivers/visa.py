@@ -22,12 +22,12 @@ Traps of the pyvisa-py stack handled here (verified on pyvisa-py 0.8.1):
   that closes mid-block spins until the full timeout, then later raises a plain
   OSError (BrokenPipeError). For pyvisa-py SOCKET sessions the block payload is
   read straight from the session's socket with ``recv_into``: a closed peer shows
-  up at once as :class:`~drivers.errors.ConnectionLost`;
+  up at once as :class:`~probelog.drivers.errors.ConnectionLost`;
 - opening a SOCKET resource where nothing listens succeeds; the refusal surfaces
   at the first write as ConnectionRefusedError. Drivers query ``*IDN?`` right
-  after opening so it surfaces there as :class:`~drivers.errors.InstrumentUnreachable`.
+  after opening so it surfaces there as :class:`~probelog.drivers.errors.InstrumentUnreachable`.
 
-Every VisaIOError and OSError is translated into a :mod:`drivers.errors`
+Every VisaIOError and OSError is translated into a :mod:`probelog.drivers.errors`
 exception whose message says which of the two happened.
 """
 
@@ -45,7 +45,7 @@ import pyvisa
 from pyvisa import constants
 from pyvisa.errors import VisaIOError
 
-from drivers.errors import (
+from probelog.drivers.errors import (
     BadResourceName,
     ConnectionLost,
     DriverError,
@@ -272,7 +272,7 @@ def open_resource(
 class Link:
     """One open VISA resource speaking SCPI text plus IEEE 488.2 blocks.
 
-    Every method raises only :mod:`drivers.errors` exceptions for I/O failures.
+    Every method raises only :mod:`probelog.drivers.errors` exceptions for I/O failures.
     After a :class:`TransportError` call :meth:`reopen`.
     """
 

@@ -1,23 +1,23 @@
 """SCPI VNA driver: settings, one triggered sweep, S-parameters as a skrf.Network.
 
-Command words come from a dialect file (:mod:`drivers.dialect`); the generic one
+Command words come from a dialect file (:mod:`probelog.drivers.dialect`); the generic one
 (``drivers/dialects/generic-vna.toml``) is what the simulated bench speaks.
 
 One sweep: (``set_ports``) -> ``trigger_single`` -> ``wait_complete`` (``*OPC?``,
 with a timeout stretched to the expected sweep time) -> ``fetch_sparams`` as an
 IEEE 488.2 REAL,64 block (byte order from the dialect) -> (``fetch_frequencies``)
 -> Network with 50 ohm ports. After settings are sent each is read back
-(``query_*``; :mod:`drivers.readback`) and a difference refuses the sweep
-(:class:`~drivers.errors.SettingMismatch`). A contact pre-check
+(``query_*``; :mod:`probelog.drivers.readback`) and a difference refuses the sweep
+(:class:`~probelog.drivers.errors.SettingMismatch`). A contact pre-check
 (:meth:`ScpiVna.precheck_sweep`) sweeps a few points at a wide IF bandwidth,
 then restores the plan's settings and reads them back. The error queue is read after every operation; any
-entry raises :class:`~drivers.errors.InstrumentError` quoting the instrument.
+entry raises :class:`~probelog.drivers.errors.InstrumentError` quoting the instrument.
 
 If the instrument rejects ``format_binary`` (an error-queue entry) the driver
 falls back to ``format_ascii``; a data reply that does not start with ``#`` is
 parsed as comma-separated ASCII numbers in any case.
 
-Errors (all in :mod:`drivers.errors`): InstrumentTimeout, ConnectionLost,
+Errors (all in :mod:`probelog.drivers.errors`): InstrumentTimeout, ConnectionLost,
 InstrumentUnreachable, MalformedBlock / ShortBlock, InstrumentError,
 PowerLimitError (raised before anything is sent), SettingMismatch. After a transport error call
 :meth:`ScpiVna.reopen`; the settings last applied are sent again.
@@ -30,11 +30,11 @@ from pathlib import Path
 import numpy as np
 import skrf
 
-from drivers.dialect import Dialect, load_dialect
-from drivers.errors import DriverError, InstrumentError, PowerLimitError, ReplyError, SettingMismatch
-from drivers.readback import SETTINGS as READBACK
-from drivers.readback import changed_fields, fmt, parse_number, same
-from drivers.visa import Link, LinkSettings, open_resource
+from probelog.drivers.dialect import Dialect, load_dialect
+from probelog.drivers.errors import DriverError, InstrumentError, PowerLimitError, ReplyError, SettingMismatch
+from probelog.drivers.readback import SETTINGS as READBACK
+from probelog.drivers.readback import changed_fields, fmt, parse_number, same
+from probelog.drivers.visa import Link, LinkSettings, open_resource
 from probelog.bench import SweepSettings
 
 Z0_OHM = 50.0
@@ -141,7 +141,7 @@ class ScpiVna:
 
         The power check happens before any command is sent. A setting the
         instrument reads back differently (clamped, rounded, ignored) raises
-        :class:`~drivers.errors.SettingMismatch` and leaves the VNA unconfigured:
+        :class:`~probelog.drivers.errors.SettingMismatch` and leaves the VNA unconfigured:
         :meth:`sweep` refuses until a configure succeeds.
         """
         check_power(settings, power_limit_dbm)

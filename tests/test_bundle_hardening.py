@@ -23,7 +23,7 @@ import probelog
 from probelog.export import DamagedSessionError, export_bundle
 from probelog.manifest import csv_cell
 from test_export import FAMILIES, LENGTH_M, SessionWriter, check, media_of, write_session
-from tui.cli import main as cli_main
+from probelog.tui.cli import main as cli_main
 
 # OWASP, "CSV Injection" (owasp.org/www-community/attacks/CSV_Injection, from
 # memory): cells beginning with =, +, -, @, tab (0x09) or carriage return (0x0D)

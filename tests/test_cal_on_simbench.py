@@ -14,9 +14,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from drivers.prober import ScpiProber
-from drivers.simbench import SimBench
-from drivers.vna import ScpiVna
+from probelog.drivers.prober import ScpiProber
+from probelog.drivers.simbench import SimBench
+from probelog.drivers.vna import ScpiVna
 from probelog import calibration as cal
 from probelog.bench import SweepSettings
 from probelog.calkit import load_kit

@@ -3,7 +3,7 @@ import sys
 
 import pytest
 
-from tui.cli import COMMANDS, main
+from probelog.tui.cli import COMMANDS, main
 
 
 def test_help_lists_every_subcommand(capsys):
@@ -24,6 +24,6 @@ def test_every_subcommand_has_help(name, capsys):
 
 
 def test_console_entry_point_runs():
-    proc = subprocess.run([sys.executable, "-m", "tui", "--help"], capture_output=True, text=True)
+    proc = subprocess.run([sys.executable, "-m", "probelog.tui", "--help"], capture_output=True, text=True)
     assert proc.returncode == 0
     assert "simbench" in proc.stdout

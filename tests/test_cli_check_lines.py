@@ -8,8 +8,8 @@ import skrf
 
 from probelog.checks import KINDS
 from probelog.touchstone_input import TouchstoneInputError, load_touchstone, require_ports
-from tui.cli import main
-from tui.commands import check as check_cmd
+from probelog.tui.cli import main
+from probelog.tui.commands import check as check_cmd
 
 C0 = 299_792_458.0
 GOOD_2P = "# GHz S RI R 50\n1 0.1 0 0.9 0 0.9 0 0.1 0\n2 0.1 0 0.9 0 0.9 0 0.1 0\n"

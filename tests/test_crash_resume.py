@@ -37,7 +37,7 @@ import pytest
 
 import probelog.journal as jmod
 from probelog.journal import JOURNAL_NAME, Journal, verify
-from tui.cli import main as cli
+from probelog.tui.cli import main as cli
 
 ROOT = Path(__file__).resolve().parents[1]
 TRIALS = 20
@@ -74,7 +74,7 @@ def _env() -> dict[str, str]:
 
 
 def _cmd(*args: str) -> list[str]:
-    return [sys.executable, "-m", "tui", *args]
+    return [sys.executable, "-m", "probelog.tui", *args]
 
 
 def _bench_args(seed: int) -> list[str]:

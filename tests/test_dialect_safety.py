@@ -14,10 +14,10 @@ from pathlib import Path
 import pytest
 import pyvisa
 
-from drivers.dialect import Dialect, load_dialect
-from drivers.errors import DialectError
-from drivers.simbench import SimBench
-from drivers.vna import ScpiVna
+from probelog.drivers.dialect import Dialect, load_dialect
+from probelog.drivers.errors import DialectError
+from probelog.drivers.simbench import SimBench
+from probelog.drivers.vna import ScpiVna
 from probelog.bench import SweepSettings
 
 ROOT = Path(__file__).resolve().parents[1]

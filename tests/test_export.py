@@ -28,7 +28,7 @@ from skrf.media import DefinedGammaZ0
 import probelog
 from probelog.export import export_bundle
 from probelog.manifest import SessionFormatError, flatten_metrics, read_journal, walk_chain
-from tui.cli import main as cli_main
+from probelog.tui.cli import main as cli_main
 
 C0 = 299_792_458.0  # m/s, exact by the SI definition
 DB_PER_NP = 20 / np.log(10)  # 8.6859 dB per neper (Pozar 4th ed. sec. 2.7, from memory)
@@ -493,7 +493,7 @@ def test_headless_session_on_the_simulated_bench_exports(tmp_path, capsys):
     with the same SHA-256."""
     pytest.importorskip("probelog.session")
     pytest.importorskip("probelog.headless")
-    pytest.importorskip("drivers.simbench")
+    pytest.importorskip("probelog.drivers.simbench")
     root = Path(__file__).resolve().parents[1]
     demo = (root / "probelog/plans/demo.toml").read_text()
     plan = re.sub(r"dies = \[.*?\n\]", "dies = [[4, 3]]", demo, flags=re.S)

@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 import skrf
 
-from drivers.errors import InstrumentTimeout, PowerLimitError, TouchstoneRejected, WaitCancelled
-from drivers.folder import FolderVna
+from probelog.drivers.errors import InstrumentTimeout, PowerLimitError, TouchstoneRejected, WaitCancelled
+from probelog.drivers.folder import FolderVna
 from probelog.bench import SweepSettings, Vna
 
 SETTINGS = SweepSettings(start_hz=1e9, stop_hz=67e9, points=67, ifbw_hz=1e3, power_dbm=-10)

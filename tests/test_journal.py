@@ -33,7 +33,7 @@ from probelog.journal import (
     new_session_id,
     verify,
 )
-from tui.cli import main as cli
+from probelog.tui.cli import main as cli
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -11,10 +11,10 @@ import pytest
 from hypothesis import settings, strategies as st
 from hypothesis.stateful import RuleBasedStateMachine, invariant, precondition, rule
 
-from drivers.dialect import load_dialect
-from drivers.errors import DriverError, InterlockError, InstrumentError, OperatorDeclined, ReplyError
-from drivers.prober import ManualProber, ScpiProber
-from drivers.visa import parse_error_reply
+from probelog.drivers.dialect import load_dialect
+from probelog.drivers.errors import DriverError, InterlockError, InstrumentError, OperatorDeclined, ReplyError
+from probelog.drivers.prober import ManualProber, ScpiProber
+from probelog.drivers.visa import parse_error_reply
 from probelog.bench import Prober
 
 PROBES = ("P1-GSG100", "P2-GSG100")

@@ -7,14 +7,14 @@ import pytest
 import skrf
 from scipy.special import ellipk
 
-from drivers.simbench import SimBench
-from drivers.simbench.chip import load_chip
-from drivers.simbench.errorbox import error_model, raw_from_true
-from drivers.simbench.faults import (
+from probelog.drivers.simbench import SimBench
+from probelog.drivers.simbench.chip import load_chip
+from probelog.drivers.simbench.errorbox import error_model, raw_from_true
+from probelog.drivers.simbench.faults import (
     HIGH_RC_OHM, SKATE_C_FF, SKATE_L_PH, FaultBook, FaultSpecError, apply_contact_faults, parse_fault,
 )
-from drivers.simbench.impairments import add_noise
-from drivers.simbench.physics import NOMINAL, SiteModel, line_model
+from probelog.drivers.simbench.impairments import add_noise
+from probelog.drivers.simbench.physics import NOMINAL, SiteModel, line_model
 
 C0 = 299_792_458.0
 CHIP = load_chip()

@@ -18,7 +18,7 @@ import pyvisa
 import skrf
 from skrf.calibration import unterminate
 
-from drivers.simbench import SimBench
+from probelog.drivers.simbench import SimBench
 
 ROOT = Path(__file__).resolve().parents[1]
 VNA = tomllib.loads((ROOT / "drivers/dialects/generic-vna.toml").read_text())["commands"]

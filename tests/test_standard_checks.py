@@ -12,7 +12,7 @@ practice, no source).
 import numpy as np
 import pytest
 
-from drivers.simbench import SimBench
+from probelog.drivers.simbench import SimBench
 from probelog.checks import Limits
 from probelog.standard_checks import raw_standard_checks
 from probelog.verdicts import Verdict

@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from drivers.errors import MalformedBlock, ShortBlock
-from drivers.visa import (
+from probelog.drivers.errors import MalformedBlock, ShortBlock
+from probelog.drivers.visa import (
     decode_block,
     encode_block,
     float64_from_block,

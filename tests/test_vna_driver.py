@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 import skrf
 
-from drivers.dialect import load_dialect
-from drivers.errors import (
+from probelog.drivers.dialect import load_dialect
+from probelog.drivers.errors import (
     ConnectionLost,
     DriverError,
     InstrumentError,
@@ -27,7 +27,7 @@ from drivers.errors import (
     PowerLimitError,
     ShortBlock,
 )
-from drivers.vna import ScpiVna
+from probelog.drivers.vna import ScpiVna
 from probelog.bench import SweepSettings
 from tests._fake_vna import TIMEOUT_MS, FakeVnaServer, reference_network
 

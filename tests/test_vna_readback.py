@@ -15,10 +15,10 @@ import numpy as np
 import pytest
 import pyvisa
 
-from drivers.errors import DriverError, SettingMismatch
-from drivers.folder import FolderVna
-from drivers.simbench import SimBench
-from drivers.vna import ScpiVna
+from probelog.drivers.errors import DriverError, SettingMismatch
+from probelog.drivers.folder import FolderVna
+from probelog.drivers.simbench import SimBench
+from probelog.drivers.vna import ScpiVna
 from probelog.bench import SweepSettings, precheck_settings
 from tests._fake_vna import TIMEOUT_MS, FakeVnaServer, reference_network
 

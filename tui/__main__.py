@@ -1,5 +1,5 @@
 import sys
 
-from tui.cli import main
+from probelog.tui.cli import main
 
 sys.exit(main())

@@ -26,16 +26,16 @@ from textual.binding import Binding
 from textual.screen import ModalScreen, Screen
 from textual.worker import Worker, WorkerState
 
-from tui.messages import EngineNotified, EngineReady, JournalGrew, SessionClosed
-from tui.screens.base import BenchScreen
-from tui.screens.calibrate import Calibrate
-from tui.screens.cautions import Cautions
-from tui.screens.dialogs import Confirm, Failure
-from tui.screens.intake import Intake, SessionRequest
-from tui.screens.opening import Opening
-from tui.screens.probe import Probe
-from tui.widgets.logbook import JournalTail
-from tui.widgets.where_bar import kind_name
+from probelog.tui.messages import EngineNotified, EngineReady, JournalGrew, SessionClosed
+from probelog.tui.screens.base import BenchScreen
+from probelog.tui.screens.calibrate import Calibrate
+from probelog.tui.screens.cautions import Cautions
+from probelog.tui.screens.dialogs import Confirm, Failure
+from probelog.tui.screens.intake import Intake, SessionRequest
+from probelog.tui.screens.opening import Opening
+from probelog.tui.screens.probe import Probe
+from probelog.tui.widgets.logbook import JournalTail
+from probelog.tui.widgets.where_bar import kind_name
 
 EngineFactory = Callable[..., Any]
 

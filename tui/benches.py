@@ -37,7 +37,7 @@ def build_bench(args: argparse.Namespace, probe_ids: Sequence[str],
                 confirm: Callable[[str], bool] | None = None):
     """The Bench the options describe; raises tui.cli.UsageError with one line."""
     from probelog.bench import Bench
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     closers = []
     try:
@@ -45,7 +45,7 @@ def build_bench(args: argparse.Namespace, probe_ids: Sequence[str],
         prober_word = args.prober or ("sim" if args.bench == "sim" else None)
         desc = []
         if args.bench == "sim":
-            from drivers.simbench import SimBench
+            from probelog.drivers.simbench import SimBench
 
             rate = DEMO_FAULT_RATE if args.fault_rate is None else args.fault_rate
             if not 0.0 <= rate <= 1.0:
@@ -83,31 +83,31 @@ def build_bench(args: argparse.Namespace, probe_ids: Sequence[str],
 
 
 def _vna(args, resource, timeout_ms=None):
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     if args.watch_folder:
-        from drivers.folder import FolderVna
+        from probelog.drivers.folder import FolderVna
 
         return FolderVna(args.watch_folder)
     if not resource:
         raise UsageError("--bench visa needs --vna RESOURCE (or --watch-folder DIR)")
-    from drivers.vna import ScpiVna
+    from probelog.drivers.vna import ScpiVna
 
     return ScpiVna(resource, dialect=args.vna_dialect, timeout_ms=timeout_ms)
 
 
 def _prober(args, word, probe_ids, confirm):
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     if not word:
         raise UsageError("--bench visa needs --prober manual or --prober RESOURCE")
     if word == "manual":
-        from drivers.prober import ManualProber
+        from probelog.drivers.prober import ManualProber
 
         if confirm is None:
             raise UsageError("--prober manual needs the interactive UI (drop --headless)")
         return ManualProber(confirm, probe_ids)
-    from drivers.prober import ScpiProber
+    from probelog.drivers.prober import ScpiProber
 
     return ScpiProber(word, probe_ids, dialect=args.prober_dialect)
 

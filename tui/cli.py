@@ -16,9 +16,9 @@ class UsageError(Exception):
 
 def _load(name: str):
     try:
-        return importlib.import_module(f"tui.commands.{name}")
+        return importlib.import_module(f"probelog.tui.commands.{name}")
     except ModuleNotFoundError as exc:
-        if exc.name != f"tui.commands.{name}":
+        if exc.name != f"probelog.tui.commands.{name}":
             raise
         return None
 

@@ -15,16 +15,16 @@ from pathlib import Path
 import numpy as np
 import skrf
 
-from drivers.simbench.chip import CHIP_FILE, load_chip
-from drivers.simbench.errorbox import drifted
-from drivers.simbench.faults import Fault, FaultBook, FaultSpecError, parse_fault
-from drivers.simbench.impairments import SimClock, drift_factors
-from drivers.simbench.prober_instrument import SimProber
-from drivers.simbench.server import InstrumentServer
-from drivers.simbench.simulator import Simulator
-from drivers.simbench.state import BenchState
-from drivers.simbench.sweeptime import sweep_time_scale as sweep_time_scale_of
-from drivers.simbench.vna_instrument import SimVna
+from probelog.drivers.simbench.chip import CHIP_FILE, load_chip
+from probelog.drivers.simbench.errorbox import drifted
+from probelog.drivers.simbench.faults import Fault, FaultBook, FaultSpecError, parse_fault
+from probelog.drivers.simbench.impairments import SimClock, drift_factors
+from probelog.drivers.simbench.prober_instrument import SimProber
+from probelog.drivers.simbench.server import InstrumentServer
+from probelog.drivers.simbench.simulator import Simulator
+from probelog.drivers.simbench.state import BenchState
+from probelog.drivers.simbench.sweeptime import sweep_time_scale as sweep_time_scale_of
+from probelog.drivers.simbench.vna_instrument import SimVna
 
 
 @dataclass(frozen=True)
@@ -48,7 +48,7 @@ class SimBench:
     resource strings (VNA, prober).
 
     ``sweep_time_scale`` is the bench's sweep-time setting
-    (:mod:`drivers.simbench.sweeptime`): "off" / 0 (default: sweeps are instant,
+    (:mod:`probelog.drivers.simbench.sweeptime`): "off" / 0 (default: sweeps are instant,
     for tests and the demo), "realistic" / 1 (``*OPC?`` waits the modelled time,
     e.g. 10 s a direction for 1,001 points at 100 Hz IF bandwidth), or a scale
     between. :attr:`instrument_seconds` is the modelled time of all sweeps so far.

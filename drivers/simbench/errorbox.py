@@ -20,7 +20,7 @@ import skrf
 from skrf.calibration import terminate
 from skrf.media import DefinedGammaZ0
 
-from drivers.simbench.physics import abcd_to_s, chain, series, shunt
+from probelog.drivers.simbench.physics import abcd_to_s, chain, series, shunt
 
 DB_PER_NP = 20 / np.log(10)
 

@@ -16,8 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from drivers.simbench.errorbox import cascade
-from drivers.simbench.physics import Z_REF, SiteModel, abcd_to_s, pair_s, series
+from probelog.drivers.simbench.errorbox import cascade
+from probelog.drivers.simbench.physics import Z_REF, SiteModel, abcd_to_s, pair_s, series
 
 CONTACT_KINDS = ("lifted-1", "lifted-2", "lifted", "high-rc", "skate", "dead-die")
 PROTOCOL_KINDS = ("slow", "garbled", "drop")

@@ -23,7 +23,7 @@ import skrf
 from scipy.special import ellipk
 from skrf.media import CPW, DefinedGammaZ0
 
-from drivers.simbench.chip import Chip, Site
+from probelog.drivers.simbench.chip import Chip, Site
 
 C0 = 299_792_458.0  # m/s
 MU0 = 4e-7 * np.pi  # H/m

@@ -8,9 +8,9 @@ from __future__ import annotations
 
 import threading
 
-from drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError
-from drivers.simbench.server import Reply, run_line
-from drivers.simbench.state import BenchState
+from probelog.drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError
+from probelog.drivers.simbench.server import Reply, run_line
+from probelog.drivers.simbench.state import BenchState
 
 IDN = "probelog,SimProber-200,PLX7-SIM-0002,0.1.0"
 

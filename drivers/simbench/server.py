@@ -13,7 +13,7 @@ import threading
 from dataclasses import dataclass
 from typing import Protocol
 
-from drivers.simbench.scpi import ScpiError, split_line
+from probelog.drivers.simbench.scpi import ScpiError, split_line
 
 MAX_LINE = 1 << 16
 _QUICKACK = getattr(socket, "TCP_QUICKACK", None)  # Linux only

@@ -11,11 +11,11 @@ from collections import OrderedDict
 
 import numpy as np
 
-from drivers.simbench.chip import Chip
-from drivers.simbench.errorbox import ErrorModel, drifted, error_model, raw_from_true
-from drivers.simbench.faults import apply_contact_faults
-from drivers.simbench.impairments import add_noise, drift_factors
-from drivers.simbench.physics import NOMINAL, SiteModel, die_variation
+from probelog.drivers.simbench.chip import Chip
+from probelog.drivers.simbench.errorbox import ErrorModel, drifted, error_model, raw_from_true
+from probelog.drivers.simbench.faults import apply_contact_faults
+from probelog.drivers.simbench.impairments import add_noise, drift_factors
+from probelog.drivers.simbench.physics import NOMINAL, SiteModel, die_variation
 
 
 class _Lru:

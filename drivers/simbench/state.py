@@ -6,9 +6,9 @@ from __future__ import annotations
 import threading
 from dataclasses import dataclass
 
-from drivers.simbench.chip import Chip
-from drivers.simbench.faults import PROTOCOL_KINDS, FaultBook
-from drivers.simbench.scpi import ScpiError
+from probelog.drivers.simbench.chip import Chip
+from probelog.drivers.simbench.faults import PROTOCOL_KINDS, FaultBook
+from probelog.drivers.simbench.scpi import ScpiError
 
 
 @dataclass(frozen=True)

@@ -13,12 +13,12 @@ import time
 
 import numpy as np
 
-from drivers.simbench.impairments import SimClock
-from drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError, integer, number
-from drivers.simbench.server import Reply, run_line
-from drivers.simbench.simulator import Simulator
-from drivers.simbench.state import BenchState
-from drivers.simbench.sweeptime import SweepTimeModel
+from probelog.drivers.simbench.impairments import SimClock
+from probelog.drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError, integer, number
+from probelog.drivers.simbench.server import Reply, run_line
+from probelog.drivers.simbench.simulator import Simulator
+from probelog.drivers.simbench.state import BenchState
+from probelog.drivers.simbench.sweeptime import SweepTimeModel
 
 F_MIN, F_MAX = 10e6, 110e9  # Hz
 POINTS_MAX = 20001
@@ -35,7 +35,7 @@ def ieee_block(payload: bytes) -> bytes:
 
 class SimVna:
     """The simulated VNA. ``sweep_time_scale``: how much of the modelled sweep time
-    (:mod:`drivers.simbench.sweeptime`) ``*OPC?`` really waits; ``modelled_s`` and
+    (:mod:`probelog.drivers.simbench.sweeptime`) ``*OPC?`` really waits; ``modelled_s`` and
     ``sweeps`` count the full modelled time and the sweeps, whatever the scale."""
 
     def __init__(self, sim: Simulator, state: BenchState, clock: SimClock, seed: int = 0,

@@ -11,13 +11,13 @@ import pytest
 
 from tests.tui.fake_engine import DIES, SITES, FakeEngine
 from tests.tui.helpers import press, quit_session, settle
-from tui.app import build_app
-from tui.messages import ChecksFinished, LandingStarted, SweepMeasured
-from tui.screens.calibrate import Calibrate
-from tui.screens.cautions import Cautions
-from tui.screens.dialogs import AskReason, Confirm, Failure
-from tui.screens.probe import Probe
-from tui.widgets.logbook import Logbook
+from probelog.tui.app import build_app
+from probelog.tui.messages import ChecksFinished, LandingStarted, SweepMeasured
+from probelog.tui.screens.calibrate import Calibrate
+from probelog.tui.screens.cautions import Cautions
+from probelog.tui.screens.dialogs import AskReason, Confirm, Failure
+from probelog.tui.screens.probe import Probe
+from probelog.tui.widgets.logbook import Logbook
 
 FAULT = ((1, 0), "line-a", 1)  # lifted tip on the first landing of line-a on die 1,0
 

@@ -14,10 +14,10 @@ from pathlib import Path
 
 from tests.tui.helpers import press, quit_session, settle
 from tests.tui.test_flow import screen_text
-from tui.app import build_app
-from tui.messages import ChecksFinished, LandingStarted, SweepMeasured
-from tui.screens.calibrate import Calibrate
-from tui.screens.probe import Probe
+from probelog.tui.app import build_app
+from probelog.tui.messages import ChecksFinished, LandingStarted, SweepMeasured
+from probelog.tui.screens.calibrate import Calibrate
+from probelog.tui.screens.probe import Probe
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "probelog" / "plans" / "demo.toml"
@@ -52,7 +52,7 @@ def test_real_engine_on_the_simulated_bench(tmp_path):
 
     from probelog.plan import load_plan
     from probelog.session import Engine
-    from tui.benches import build_bench
+    from probelog.tui.benches import build_bench
 
     plan = load_plan(str(reduced_plan(tmp_path)))
     first_die = plan.dies_in_order()[0]

@@ -8,13 +8,13 @@ import skrf
 from skrf.media import DefinedGammaZ0
 
 from probelog.verdicts import CheckResult, Verdict
-from tui.widgets.bigtext import GLYPHS, render_big
-from tui.widgets.die_map import SHADES, shade_index
-from tui.widgets.logbook import JournalTail, describe
-from tui.widgets.smith import Canvas, densify, polar_grid, rotation_sense, smith_grid, z_to_gamma
-from tui.widgets.sweep_plot import cap_points, magnitude_db
-from tui.widgets.tip_wear import wear_state
-from tui.widgets.verdict_board import checks_table, format_figure
+from probelog.tui.widgets.bigtext import GLYPHS, render_big
+from probelog.tui.widgets.die_map import SHADES, shade_index
+from probelog.tui.widgets.logbook import JournalTail, describe
+from probelog.tui.widgets.smith import Canvas, densify, polar_grid, rotation_sense, smith_grid, z_to_gamma
+from probelog.tui.widgets.sweep_plot import cap_points, magnitude_db
+from probelog.tui.widgets.tip_wear import wear_state
+from probelog.tui.widgets.verdict_board import checks_table, format_figure
 
 
 @pytest.mark.parametrize("r", [0.2, 0.5, 1.0, 2.0, 5.0])

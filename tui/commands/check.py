@@ -25,7 +25,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _window(name: str, pair: list[float] | None) -> list[float] | None:
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     if pair is None:
         return None
@@ -37,7 +37,7 @@ def _window(name: str, pair: list[float] | None) -> list[float] | None:
 
 def expectation_from_args(args: argparse.Namespace) -> dict:
     """The site expectation (plan keys) from the command-line options."""
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     exp: dict = {}
     if args.length_mm is not None:
@@ -79,7 +79,7 @@ def run(args: argparse.Namespace) -> int:
     from probelog.checks import KINDS, Limits, run_checks
     from probelog.touchstone_input import TouchstoneInputError, load_touchstone, require_ports
     from probelog.verdicts import Verdict, overall
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     if args.kind not in KINDS:
         raise UsageError(f"unknown kind '{args.kind}' (known: {', '.join(KINDS)})")

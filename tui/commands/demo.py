@@ -47,10 +47,10 @@ def make_factory(args: argparse.Namespace):
 
         from probelog.plan import load_plan
         from probelog.session import Engine
-        from tui.benches import build_bench
+        from probelog.tui.benches import build_bench
 
         if request.resume is not None:
-            from tui.commands.run import _probe_ids_of
+            from probelog.tui.commands.run import _probe_ids_of
 
             bench = build_bench(bench_args(request, args.seed, args.fault_rate),
                                 _probe_ids_of(str(request.resume)), confirm)
@@ -71,13 +71,13 @@ def make_factory(args: argparse.Namespace):
 
 
 def run(args: argparse.Namespace) -> int:
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     if args.fault_rate is not None and not 0.0 <= args.fault_rate <= 1.0:
         raise UsageError(f"--fault-rate must be between 0 and 1, got {args.fault_rate:g}")
     from probelog.plan import PlanError, load_plan
-    from tui.app import run_app
-    from tui.screens.intake import SessionRequest
+    from probelog.tui.app import run_app
+    from probelog.tui.screens.intake import SessionRequest
 
     try:
         plan = load_plan("demo")

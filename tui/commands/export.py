@@ -22,7 +22,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     session = Path(args.session)
     if not session.exists():

@@ -56,7 +56,7 @@ def run(args: argparse.Namespace) -> int:
 
     from probelog.lines import default_frequencies, gamma_two_lines, line_metrics, metrics_at, metrics_from_gamma
     from probelog.touchstone_input import TouchstoneInputError, load_touchstone, require_ports
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     if not args.length > 0:
         raise UsageError(f"--length must be positive, got {args.length:g}")

@@ -10,7 +10,7 @@ HELP = "run a probing session from a plan (or --resume one), in the UI or --head
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    from tui.benches import add_bench_arguments
+    from probelog.tui.benches import add_bench_arguments
 
     parser.add_argument("plan", nargs="?", metavar="PLAN", help="plan file (.toml) or the word demo")
     parser.add_argument("--resume", metavar="SESSION", help="session folder to continue")
@@ -23,7 +23,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     if bool(args.plan) == bool(args.resume):
         raise UsageError("give a PLAN (file or 'demo') or --resume SESSION, not both")
@@ -55,12 +55,12 @@ def run(args: argparse.Namespace) -> int:
             raise
 
     def build(confirm=None):
-        from tui.benches import build_bench
+        from probelog.tui.benches import build_bench
 
         return build_bench(args, probe_ids, confirm)
 
     if not args.headless:
-        from tui.app import run_app
+        from probelog.tui.app import run_app
 
         return run_app(engine_factory)
 
@@ -111,7 +111,7 @@ def _probe_ids_of(session: str) -> tuple[str, ...]:
     import json
     from pathlib import Path
 
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     path = Path(session) / "journal.jsonl"
     try:

@@ -55,9 +55,9 @@ def run(args: argparse.Namespace) -> int:
     import signal
     import threading
 
-    from drivers.simbench import FaultSpecError, SimBench
-    from drivers.simbench.chip import ChipFileError
-    from tui.cli import UsageError
+    from probelog.drivers.simbench import FaultSpecError, SimBench
+    from probelog.drivers.simbench.chip import ChipFileError
+    from probelog.tui.cli import UsageError
 
     try:
         bench = SimBench(seed=args.seed, sweep_time_scale=args.sweep_time_scale, fault_rate=args.fault_rate,

@@ -20,7 +20,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
     from probelog.journal import JournalError, NotASessionError, verify
 
     anchor = None

@@ -15,10 +15,10 @@ from textual.reactive import var
 from textual.screen import Screen
 from textual.worker import Worker, WorkerState
 
-from tui.messages import CalibrationSolved, ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
-from tui.screens.dialogs import AskReason
-from tui.widgets.logbook import Logbook
-from tui.widgets.smith import SmithChart
+from probelog.tui.messages import CalibrationSolved, ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
+from probelog.tui.screens.dialogs import AskReason
+from probelog.tui.widgets.logbook import Logbook
+from probelog.tui.widgets.smith import SmithChart
 
 NOTE_PRESETS = ("pad scrubbed, marks visible", "debris near the pads", "probe tips cleaned",
                 "planarity adjusted")

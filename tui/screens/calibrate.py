@@ -14,14 +14,14 @@ from textual.containers import Horizontal, Vertical
 from textual.widgets import DataTable, Header, Static
 
 from probelog.verdicts import CheckResult, Verdict, overall
-from tui.widgets.bench_footer import BenchFooter
-from tui.messages import CalibrationSolved, ChecksFinished, LandingStarted, SweepMeasured
-from tui.screens.base import BenchScreen, reflections, turns_matter
-from tui.widgets.logbook import Logbook
-from tui.widgets.smith import SmithChart
-from tui.widgets.sweep_plot import SweepPlot
-from tui.widgets.verdict_board import VerdictBoard, format_figure, format_ghz, summarize, verdict_word
-from tui.widgets.where_bar import WhereBar, describe_step, kind_name
+from probelog.tui.widgets.bench_footer import BenchFooter
+from probelog.tui.messages import CalibrationSolved, ChecksFinished, LandingStarted, SweepMeasured
+from probelog.tui.screens.base import BenchScreen, reflections, turns_matter
+from probelog.tui.widgets.logbook import Logbook
+from probelog.tui.widgets.smith import SmithChart
+from probelog.tui.widgets.sweep_plot import SweepPlot
+from probelog.tui.widgets.verdict_board import VerdictBoard, format_figure, format_ghz, summarize, verdict_word
+from probelog.tui.widgets.where_bar import WhereBar, describe_step, kind_name
 
 REDO_PRESETS = ("verification failed", "standard landed badly", "algorithms disagree",
                 "probe re-planarised")

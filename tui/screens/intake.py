@@ -16,7 +16,7 @@ from textual.screen import Screen
 from textual.widgets import Button, Header, Input, Label, OptionList, Select, Static
 from textual.widgets.option_list import Option
 
-from tui.widgets.bench_footer import BenchFooter
+from probelog.tui.widgets.bench_footer import BenchFooter
 
 BENCH_KINDS = (
     ("simulated bench (in-process)", "sim"),

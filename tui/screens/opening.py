@@ -7,7 +7,7 @@ from textual.containers import Vertical
 from textual.screen import Screen
 from textual.widgets import Header, LoadingIndicator, Static
 
-from tui.widgets.bench_footer import BenchFooter
+from probelog.tui.widgets.bench_footer import BenchFooter
 
 
 class Opening(Screen):

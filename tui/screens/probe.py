@@ -12,17 +12,17 @@ from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.widgets import Header
 
-from tui.widgets.bench_footer import BenchFooter
-from tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
-from tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
-from tui.screens.dialogs import Confirm
-from tui.widgets.die_map import DieMap
-from tui.widgets.logbook import Logbook
-from tui.widgets.smith import SmithChart
-from tui.widgets.sweep_plot import SweepPlot
-from tui.widgets.tip_wear import TipWear
-from tui.widgets.verdict_board import VerdictBoard, summarize, verdict_word
-from tui.widgets.where_bar import WhereBar, describe_step, kind_name
+from probelog.tui.widgets.bench_footer import BenchFooter
+from probelog.tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
+from probelog.tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
+from probelog.tui.screens.dialogs import Confirm
+from probelog.tui.widgets.die_map import DieMap
+from probelog.tui.widgets.logbook import Logbook
+from probelog.tui.widgets.smith import SmithChart
+from probelog.tui.widgets.sweep_plot import SweepPlot
+from probelog.tui.widgets.tip_wear import TipWear
+from probelog.tui.widgets.verdict_board import VerdictBoard, summarize, verdict_word
+from probelog.tui.widgets.where_bar import WhereBar, describe_step, kind_name
 
 SKIP_PRESETS = ("structure damaged", "pads contaminated", "die known bad", "out of time on this wafer")
 RECAL_PRESETS = ("drift reference out of limits", "probes re-planarised", "scheduled recalibration",

@@ -18,7 +18,7 @@ from textual.reactive import reactive
 from textual.widgets import Static
 
 from probelog.verdicts import CheckResult, Verdict, overall
-from tui.widgets.bigtext import render_big
+from probelog.tui.widgets.bigtext import render_big
 
 # word, symbol, big symbol key, css class
 _LOOK: dict[Verdict, tuple[str, str, str, str]] = {
