@@ -226,7 +226,7 @@ def fold(events: Iterable[ev.Event], state: SessionState | None = None) -> Sessi
 
 
 def _opened(s: SessionState, e: ev.Event, d: ev.SessionOpened) -> SessionState:
-    return _replace(s, opened=d, opened_ts=e.ts, touchdowns={p: 0 for p in d.probes})
+    return _replace(s, opened=d, opened_ts=e.ts, touchdowns=dict.fromkeys(d.probes, 0))
 
 
 def _resumed(s: SessionState, e: ev.Event, d: ev.SessionResumed) -> SessionState:

@@ -112,7 +112,7 @@ class CalStep(EngineCore):
         if terms is None:
             return None
         return [self.store.write_net(f"{stem}-switch-{d}", t, self._header(step, f"switch term {d}"))
-                for d, t in zip(("gf", "gr"), terms)]
+                for d, t in zip(("gf", "gr"), terms, strict=False)]
 
     def _compute_and_verify(self) -> CalOutcome:
         from probelog import calibration as cal

@@ -47,7 +47,7 @@ class EngineCore:
         self._configured = False
         self._reopen_vna = False
         self._drift_requested = False
-        self._touchdowns: dict[str, int] = {p: 0 for p in view.probe_ids()}
+        self._touchdowns: dict[str, int] = dict.fromkeys(view.probe_ids(), 0)
         self._phase = Phase.CALIBRATING if view.has_cal() else Phase.PROBING
         self._calsets: dict[str, Any] = {}  # cal_id -> solved cal set (kept in memory once read)
         self._last_outcome: LandingOutcome | None = None  # the landing waiting for a decision
@@ -152,7 +152,7 @@ class EngineCore:
             self._instrument_failed("prober", exc)
         counted = {p: after.get(p, 0) - before.get(p, 0) for p in after}
         if not any(v > 0 for v in counted.values()):
-            counted = {p: 1 for p in self._touchdowns}  # prober keeps no count: one per landing
+            counted = dict.fromkeys(self._touchdowns, 1)  # prober keeps no count: one per landing
         for p, n in counted.items():
             self._touchdowns[p] = self._touchdowns.get(p, 0) + max(n, 0)
         try:

@@ -69,7 +69,7 @@ class Store:
         items = [(f"{base}-{tags[w]}.s{n.nports}p", network_to_touchstone(n, {**header, "what": w}))
                  for w, n in nets.items()]
         refs = self.journal.write_files(items)
-        out = {w: ref_of(r) for w, r in zip(nets, refs)}
+        out = {w: ref_of(r) for w, r in zip(nets, refs, strict=True)}
         for w, n in nets.items():
             self._nets[out[w].path] = n
         return out
