@@ -19,12 +19,13 @@ import math
 import re
 import tomllib
 from dataclasses import dataclass
+from dataclasses import replace as _replace
 from importlib import resources
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Mapping
 
-from probelog.bench import Die, SweepSettings
+from probelog.bench import PRECHECK_IFBW_HZ, PRECHECK_POINTS, Die, SweepSettings
 
 KINDS = ("open", "short", "load", "thru", "line", "open-stub", "short-stub", "device")
 ORDERS = ("serpentine", "rows", "listed")
@@ -88,6 +89,18 @@ class Site:
     gap_um: float | None = None
     metal: str | None = None
     note: str = ""
+    precheck: "Precheck | None" = None  # None: the plan's [precheck]
+
+
+@dataclass(frozen=True)
+class Precheck:
+    """The contact pre-check before a site's sweep (``[precheck]``, or ``precheck``
+    in a ``[[site]]``: false, or a table overriding the plan's keys): ``points``
+    spread over the plan's band at ``ifbw_hz`` Hz; skipped when not ``enabled``."""
+
+    enabled: bool = True
+    points: int = PRECHECK_POINTS
+    ifbw_hz: float = PRECHECK_IFBW_HZ
 
 
 @dataclass(frozen=True)
@@ -185,6 +198,7 @@ class Plan:
     vna: VnaSettings
     probes: Probes
     limits: Mapping[str, float]
+    precheck: Precheck = Precheck()
 
     def site(self, name: str) -> Site:
         for s in self.sites:
@@ -196,6 +210,11 @@ class Plan:
     def settings(self) -> SweepSettings:
         """The stimulus as the bench's SweepSettings."""
         return self.vna.sweep_settings()
+
+    def precheck_for(self, name: str) -> Precheck:
+        """The contact pre-check of site ``name``: its own, else the plan's."""
+        own = self.site(name).precheck
+        return own if own is not None else self.precheck
 
     @property
     def power_limit_dbm(self) -> float:
@@ -460,10 +479,11 @@ def _name_list(ctx, t, key, path, default=_MISSING) -> tuple[str, ...]:
     return tuple(v)
 
 
-_TOP = ("plan", "wafer", "site", "sequence", "calibration", "vna", "probes", "limits")
+_TOP = ("plan", "wafer", "site", "sequence", "calibration", "vna", "probes", "limits", "precheck")
 _WAFER = ("id", "lot", "chip", "cols", "rows", "die_pitch_um", "skip", "dies", "order")
 _SITE = ("name", "kind", "offset_um", "ports", "symmetric", "length_um", "z0_window_ohm",
-         "alpha_db_per_mm_max", "eps_eff_window", "window_band_hz", "line_type", "width_um", "gap_um", "metal", "note")
+         "alpha_db_per_mm_max", "eps_eff_window", "window_band_hz", "line_type", "width_um", "gap_um", "metal", "note",
+         "precheck")
 _SEQ = ("sites", "drift_site", "drift_die", "drift_every_landings", "recal_every_hours")
 _CAL = ("method", "compare_with", "kit", "die", "standards", "verification")
 _VNA = ("start_hz", "stop_hz", "points", "ifbw_hz", "power_dbm", "power_limit_dbm")
@@ -490,6 +510,7 @@ def _build(ctx: _Ctx, raw: dict, text: str, base_dir: Path) -> Plan:
     vna = _vna(ctx, raw)
     probes = _probes(ctx, raw)
     limits = _limits(ctx, raw)
+    precheck = _precheck(ctx, raw, "precheck", Precheck()) or Precheck()  # the plan's default
     return Plan(
         name=name,
         description=description,
@@ -503,6 +524,7 @@ def _build(ctx: _Ctx, raw: dict, text: str, base_dir: Path) -> Plan:
         vna=vna,
         probes=probes,
         limits=limits,
+        precheck=precheck,
     )
 
 
@@ -597,8 +619,32 @@ def _sites(ctx: _Ctx, raw: dict, wafer: Wafer) -> tuple[Site, ...]:
             gap_um=_num(ctx, t, "gap_um", f"{p}.gap_um", None, positive=True, allow_zero=False),
             metal=_str(ctx, t, "metal", f"{p}.metal", None),
             note=_note(ctx, t, f"{p}.note"),
+            # a site's own table overrides only the keys it names, over [precheck]
+            precheck=_precheck(ctx, t, f"{p}.precheck", None, _precheck(ctx, raw, "precheck", Precheck())),
         ))
     return tuple(out)
+
+
+_PRECHECK = ("enabled", "points", "ifbw_hz")
+
+
+def _precheck(ctx: _Ctx, t: Mapping, path: str, missing: Precheck | None,
+              base: Precheck | None = None) -> Precheck | None:
+    """``precheck`` of ``t``: true / false, or a table of _PRECHECK keys over
+    ``base`` (default: built-in values); ``missing`` when ``t`` has none."""
+    key = path.rsplit(".", 1)[-1]
+    v = t.get(key, _MISSING)
+    if v is _MISSING:
+        return missing
+    b = base or Precheck()
+    if isinstance(v, bool):
+        return _replace(b, enabled=v)
+    if not isinstance(v, dict):
+        raise ctx.error(path, f"expected true, false or a table of {', '.join(_PRECHECK)}, found {_describe(v)}")
+    _check_keys(ctx, v, path, _PRECHECK, ())
+    return Precheck(enabled=_bool(ctx, v, "enabled", f"{path}.enabled", b.enabled),
+                    points=_int(ctx, v, "points", f"{path}.points", b.points, lo=2, hi=201),
+                    ifbw_hz=_num(ctx, v, "ifbw_hz", f"{path}.ifbw_hz", b.ifbw_hz, positive=True, allow_zero=False))
 
 
 def _note(ctx: _Ctx, t: Mapping, path: str) -> str:
