@@ -28,7 +28,7 @@ bench: $(STAMP)
 # Resolve pyproject.toml's dependencies (all extras) to exact versions.
 lock: $(STAMP)
 	$(BIN)/pip-compile --quiet --strip-extras --no-emit-index-url --no-emit-find-links \
-		--extra test --extra bench --extra dev -o requirements.lock pyproject.toml
+		--extra test --extra bench --extra dev --extra catalog -o requirements.lock pyproject.toml
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache .mypy_cache .ruff_cache
