@@ -7,7 +7,7 @@ import importlib
 import sys
 
 # Order is the order shown in --help. Names are fixed: other tooling calls them.
-COMMANDS = ("demo", "run", "check", "lines", "verify", "export", "simbench")
+COMMANDS = ("demo", "run", "check", "lines", "verify", "export", "catalog", "simbench")
 
 
 class UsageError(Exception):

@@ -17,8 +17,10 @@ from __future__ import annotations
 
 import os
 import socket
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Iterator
 
 from sqlalchemy import create_engine, event, inspect, select, text
 from sqlalchemy.engine import Connection, Engine, make_url
@@ -49,9 +51,11 @@ class Catalog:
     def dialect(self) -> str:
         return self.engine.dialect.name
 
-    def begin(self):
-        """A transaction (context manager yielding a Connection)."""
-        return self.engine.begin()
+    @contextmanager
+    def begin(self) -> Iterator[Connection]:
+        """A writing transaction (on SQLite it takes the write lock up front)."""
+        with self.engine.connect().execution_options(write_lock=True) as conn, conn.begin():
+            yield conn
 
     def close(self) -> None:
         self.engine.dispose()
@@ -86,9 +90,10 @@ def _sqlite_engine(url) -> Engine:
 
     @event.listens_for(engine, "begin")
     def _on_begin(conn):
-        # take the write lock up front: a deferred transaction that later
+        # writers take the lock up front: a deferred transaction that later
         # writes can fail with 'database is locked' instead of waiting
-        conn.exec_driver_sql("BEGIN IMMEDIATE")
+        write = conn.get_execution_options().get("write_lock", False)
+        conn.exec_driver_sql("BEGIN IMMEDIATE" if write else "BEGIN")
 
     return engine
 

@@ -26,6 +26,7 @@ from probelog.catalog.db import Catalog, CatalogError, _first_line
 from probelog.catalog.schema import CHILD_TABLES, sessions
 from probelog.catalog.source import NotASession, SessionRecord, read_session
 
+
 @dataclass
 class Added:
     """What adding one session did: ``action`` 'added', 'updated' or 'damaged'."""

@@ -113,16 +113,17 @@ checks = Table(
     Column("unit", String(16), nullable=False, default=""),
 )
 
-# Line metrics journaled with a kept landing (single-line, pads included), long form.
+# Line metrics journaled with a kept landing (single-line, pads included): one row
+# per frequency, one column per figure (wide: a tenth of the rows of a long table).
+METRIC_COLUMNS = ("z0_re", "z0_im", "alpha_db_per_mm", "beta_rad_per_mm", "eps_eff",
+                  "r_ohm_per_m", "l_h_per_m", "g_s_per_m", "c_f_per_m", "q")
 metrics = Table(
     "metrics", metadata,
     Column("session_id", String(200), ForeignKey("sessions.session_id", ondelete="CASCADE"), primary_key=True),
     Column("seq", Integer, primary_key=True),
-    Column("name", String(32), primary_key=True),
     Column("f_hz", Float, primary_key=True),
-    Column("value", Float, nullable=True),
+    *(Column(name, Float, nullable=True) for name in METRIC_COLUMNS),
 )
-Index("ix_metrics_name", metrics.c.name, metrics.c.session_id, metrics.c.seq)
 
 # Pad-free figures of a line family on one die (two lengths), per frequency.
 line_figures = Table(

@@ -23,12 +23,11 @@ from typing import Any
 
 import numpy as np
 
+from probelog.catalog.schema import METRIC_COLUMNS as METRIC_NAMES
 from probelog.journal import JournalError, verify
 from probelog.line_pairs import figures_at, line_site, pad_free_metrics, pairs_on_die
 from probelog.manifest import JOURNAL_NAME, SessionFormatError, plan_sites, read_journal
 
-METRIC_NAMES = ("z0_re", "z0_im", "alpha_db_per_mm", "beta_rad_per_mm", "eps_eff",
-                "r_ohm_per_m", "l_h_per_m", "g_s_per_m", "c_f_per_m", "q")
 FINAL_ACTIONS = ("accept", "skip", "give-up")
 
 
@@ -241,13 +240,15 @@ def _kept_rows(rec: SessionRecord, ev: dict) -> None:
     m = p.get("metrics")
     if isinstance(m, dict) and isinstance(m.get("f_hz"), list):
         freqs = m["f_hz"]
-        for name in METRIC_NAMES:
-            vals = m.get(name)
-            if not isinstance(vals, list) or len(vals) != len(freqs):
+        cols = {n: v for n in METRIC_NAMES if isinstance(v := m.get(n), list) and len(v) == len(freqs)}
+        seen_f = set()
+        for i, f in enumerate(freqs):
+            if _num(f) is None or f in seen_f:
                 continue
-            for f, v in dict(zip(freqs, vals)).items():
-                if _num(f) is not None:
-                    rec.metrics.append({"seq": seq, "name": name, "f_hz": float(f), "value": _num(v)})
+            seen_f.add(f)
+            row = {"seq": seq, "f_hz": float(f)}
+            row.update({n: _num(cols[n][i]) if n in cols else None for n in METRIC_NAMES})
+            rec.metrics.append(row)
 
 
 def _fold_bench(rec: SessionRecord, events: list[dict]) -> None:
