@@ -18,6 +18,7 @@ Hz, lengths in um in the plan, metres inside; e^{+j omega t}.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -45,7 +46,7 @@ class LineSite:
         return f"{self.line_type}/{self.metal}/{self.width_um:g}x{self.gap_um:g}um"
 
 
-def line_site(name: str, table: dict) -> LineSite | None:
+def line_site(name: str, table: dict[str, Any]) -> LineSite | None:
     """A :class:`LineSite` from a plan's site table (TOML dict), or None when the
     site is not a line with type, metal, width, gap and length all stated."""
     if table.get("kind") not in LINE_KINDS:
@@ -58,7 +59,7 @@ def line_site(name: str, table: dict) -> LineSite | None:
         return None
 
 
-def _opt(v) -> float | None:
+def _opt(v: Any) -> float | None:
     return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0 else None
 
 
@@ -77,7 +78,7 @@ def pairs_on_die(sites: list[LineSite]) -> list[tuple[LineSite, LineSite]]:
     return out
 
 
-def pad_free_metrics(ntwk_a, site_a: LineSite, ntwk_b, site_b: LineSite) -> tuple[LineMetrics, str]:
+def pad_free_metrics(ntwk_a: Any, site_a: LineSite, ntwk_b: Any, site_b: LineSite) -> tuple[LineMetrics, str]:
     """Gamma from the two lines and, with the plan's reference, Z0.
 
     Returns (metrics over the whole sweep, how Z0 was found: '' / 'c-ref' /
@@ -98,7 +99,7 @@ def pad_free_metrics(ntwk_a, site_a: LineSite, ntwk_b, site_b: LineSite) -> tupl
     return metrics_from_gamma(f, gamma), ""
 
 
-def figures_at(metrics: LineMetrics, freqs_hz) -> list[dict[str, float | None]]:
+def figures_at(metrics: LineMetrics, freqs_hz: Any) -> list[dict[str, float | None]]:
     """One dict per frequency (keys of :data:`probelog.lines.JSON_KEYS`; None
     for NaN), at the measured points nearest to ``freqs_hz``."""
     cols = metrics_at(metrics, freqs_hz)

@@ -20,10 +20,10 @@ import socket
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterator
+from typing import Any, Iterator
 
 from sqlalchemy import create_engine, event, inspect, select, text
-from sqlalchemy.engine import Connection, Engine, make_url
+from sqlalchemy.engine import URL, Connection, Engine, make_url
 from sqlalchemy.exc import ArgumentError, DBAPIError, NoSuchModuleError, SQLAlchemyError
 
 from probelog.catalog.schema import MIGRATIONS, SCHEMA_VERSION, catalog_schema
@@ -66,12 +66,12 @@ def resolve_url(db: str | None) -> str:
     db = db or os.environ.get(ENV_VAR) or str(DEFAULT_PATH)
     if "://" not in db:
         return "sqlite:///" + str(Path(db).expanduser().resolve())
-    if db.startswith("postgresql://") or db.startswith("postgres://"):
+    if db.startswith(("postgresql://", "postgres://")):
         return "postgresql+psycopg://" + db.split("://", 1)[1]
     return db
 
 
-def _sqlite_engine(url) -> Engine:
+def _sqlite_engine(url: URL) -> Engine:
     if url.database and url.database != ":memory:":
         folder = Path(url.database).parent
         if not folder.is_dir():
@@ -79,7 +79,7 @@ def _sqlite_engine(url) -> Engine:
     engine = create_engine(url, connect_args={"timeout": SQLITE_BUSY_MS / 1000})
 
     @event.listens_for(engine, "connect")
-    def _on_connect(dbapi_conn, _record):
+    def _on_connect(dbapi_conn: Any, _record: Any) -> None:
         dbapi_conn.isolation_level = None  # we issue BEGIN ourselves (below)
         cur = dbapi_conn.cursor()
         cur.execute("PRAGMA journal_mode=WAL")
@@ -89,7 +89,7 @@ def _sqlite_engine(url) -> Engine:
         cur.close()
 
     @event.listens_for(engine, "begin")
-    def _on_begin(conn):
+    def _on_begin(conn: Connection) -> None:
         # writers take the lock up front: a deferred transaction that later
         # writes can fail with 'database is locked' instead of waiting
         write = conn.get_execution_options().get("write_lock", False)
@@ -164,7 +164,7 @@ def ensure_schema(cat: Catalog) -> int:
             conn.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": _MIGRATION_LOCK})
         found = schema_version(conn)
         have = found[0] if found else 0
-        if have > SCHEMA_VERSION:
+        if found is not None and have > SCHEMA_VERSION:
             raise CatalogError(
                 f"{cat.url}: catalog schema version {have} was written by probelog {found[1]}; "
                 f"this probelog ({__version__}) reads up to version {SCHEMA_VERSION}: upgrade probelog")

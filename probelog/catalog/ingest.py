@@ -16,7 +16,7 @@ import socket
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Callable, Iterable
+from typing import Any, Callable, Iterable
 
 from sqlalchemy import delete
 from sqlalchemy.dialects import postgresql, sqlite
@@ -38,7 +38,7 @@ class Added:
     problem: str = ""
 
 
-def _upsert(cat: Catalog, row: dict):
+def _upsert(cat: Catalog, row: dict[str, Any]) -> Any:
     ins = (postgresql.insert if cat.dialect == "postgresql" else sqlite.insert)(sessions).values(**row)
     cols = {k: ins.excluded[k] for k in row if k != "session_id"}
     return ins.on_conflict_do_update(index_elements=["session_id"], set_=cols)

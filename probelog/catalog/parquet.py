@@ -28,8 +28,10 @@ import os
 import re
 import shutil
 from pathlib import Path
+from typing import Any
 
 from sqlalchemy import select
+from sqlalchemy.engine import Connection
 
 from probelog.catalog.db import Catalog, CatalogError
 from probelog.catalog.schema import METRIC_COLUMNS, checks, line_figures, metrics, sessions, site_results
@@ -42,7 +44,7 @@ def check_column(name: str) -> str:
     return "chk_" + re.sub(r"[^0-9a-z]+", "_", name.lower()).strip("_")
 
 
-def _landing_rows(conn) -> tuple[list[dict], list[str]]:
+def _landing_rows(conn: Connection) -> tuple[list[dict[str, Any]], list[str]]:
     q = select(*(sessions.c[c] for c in SESSION_COLS), sessions.c.path.label("session_path"),
                *(c for c in site_results.c if c.name != "session_id")) \
         .select_from(site_results.join(sessions, sessions.c.session_id == site_results.c.session_id)) \
@@ -74,7 +76,7 @@ def _landing_rows(conn) -> tuple[list[dict], list[str]]:
     return rows, sorted(names)
 
 
-def _landings_table(rows: list[dict], check_cols: list[str]):
+def _landings_table(rows: list[dict[str, Any]], check_cols: list[str]) -> Any:
     import pyarrow as pa
 
     f64, s = pa.float64(), pa.string()
@@ -91,7 +93,7 @@ def _landings_table(rows: list[dict], check_cols: list[str]):
     return pa.Table.from_pydict({n: [r.get(n) for r in rows] for n in schema.names}, schema=schema)
 
 
-def _figures_table(conn):
+def _figures_table(conn: Connection) -> Any:
     import pyarrow as pa
 
     q = select(sessions.c.session_id, sessions.c.lot, sessions.c.wafer,

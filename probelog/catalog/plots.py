@@ -6,13 +6,14 @@ from __future__ import annotations
 
 import io
 from collections import defaultdict
+from typing import Any
 
 import numpy as np
 
 from probelog.catalog.queries import UNITS, Trend
 
 
-def _plt():
+def _plt() -> Any:
     import matplotlib
 
     matplotlib.use("Agg")
@@ -21,15 +22,15 @@ def _plt():
     return plt
 
 
-def to_bytes(fig, fmt: str = "png") -> bytes:
+def to_bytes(fig: Any, fmt: str = "png") -> bytes:
     """Render and close ``fig``; ``fmt`` 'png' (100 dpi) or 'svg'."""
     buf = io.BytesIO()
     fig.savefig(buf, format=fmt, dpi=100, bbox_inches="tight")
     _plt().close(fig)
-    return buf.getvalue()
+    return bytes(buf.getvalue())
 
 
-def trend_figure(t: Trend):
+def trend_figure(t: Trend) -> Any:
     """One box per wafer (session), oldest left, every die as a dot; the x
     labels name lot and wafer."""
     plt = _plt()
@@ -55,17 +56,17 @@ def trend_figure(t: Trend):
     return fig
 
 
-def line_figures_figure(rows: list[dict], f_hz: float):
+def line_figures_figure(rows: list[dict[str, Any]], f_hz: float) -> Any:
     """Z0, loss (dB/mm), eps_eff and Q against width-to-gap ratio, pad-free:
     one curve per line type and metal level (median over dies), the die-to-die
     spread (min..max) as a band. ``rows``: line_figures rows at ``f_hz``."""
     plt = _plt()
     fig, axes = plt.subplots(1, 4, figsize=(14, 3.4))
     panels = (("z0_re", "Re Z0 (ohm)"), ("alpha_db_per_mm", "loss (dB/mm)"), ("eps_eff", "eps_eff"), ("q", "Q"))
-    curves: dict[str, dict[float, list[dict]]] = defaultdict(lambda: defaultdict(list))
+    curves: dict[str, dict[float, list[dict[str, Any]]]] = defaultdict(lambda: defaultdict(list))
     for r in rows:
         curves[f"{r['line_type']} {r['metal']}"][r["width_um"] / r["gap_um"]].append(r)
-    for ax, (key, label) in zip(axes, panels):
+    for ax, (key, label) in zip(axes, panels, strict=True):
         for name, by_ratio in sorted(curves.items()):
             ratios = sorted(by_ratio)
             vals = [[x[key] for x in by_ratio[w] if x[key] is not None] for w in ratios]
@@ -90,7 +91,7 @@ def line_figures_figure(rows: list[dict], f_hz: float):
     return fig
 
 
-def wafer_maps_figure(maps: list[dict], cols: int, rows: int):
+def wafer_maps_figure(maps: list[dict[str, Any]], cols: int, rows: int) -> Any:
     """Wafer maps side by side: ``maps`` items {title, dies: {(c, r): share of
     sites passed or warned, 0..1}}; a missing die stays blank."""
     plt = _plt()
@@ -101,7 +102,7 @@ def wafer_maps_figure(maps: list[dict], cols: int, rows: int):
     im = None
     for ax in axes.flat:
         ax.set_axis_off()
-    for ax, m in zip(axes.flat, maps):
+    for ax, m in zip(axes.flat, maps, strict=False):
         grid = np.full((rows, cols), np.nan)
         for (c, r), v in m["dies"].items():
             if 0 <= c < cols and 0 <= r < rows:
@@ -116,11 +117,11 @@ def wafer_maps_figure(maps: list[dict], cols: int, rows: int):
     return fig
 
 
-def agreement_figure(rows: list[dict]):
+def agreement_figure(rows: list[dict[str, Any]]) -> Any:
     """Worst calibration-agreement bound against time, one series per method pair."""
     plt = _plt()
     fig, ax = plt.subplots(figsize=(7, 3.2))
-    series: dict[str, list[dict]] = defaultdict(list)
+    series: dict[str, list[dict[str, Any]]] = defaultdict(list)
     for r in rows:
         if r["ts"] is not None and r["worst"] is not None:
             series[f"{r['method']} vs {r['other_method']}"].append(r)

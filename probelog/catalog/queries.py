@@ -10,8 +10,10 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from datetime import datetime
 from statistics import median
+from typing import Any
 
-from sqlalchemy import and_, case, func, or_, select
+from sqlalchemy import Select, and_, case, func, or_, select
+from sqlalchemy.engine import Connection
 
 from probelog.catalog.db import Catalog, CatalogError
 from probelog.catalog.schema import (
@@ -32,7 +34,7 @@ UNITS = {"z0_re": "ohm", "z0_im": "ohm", "alpha_db_per_mm": "dB/mm", "beta_rad_p
          "c_f_per_m": "F/m", "q": ""}
 
 
-def _filters(q, lot: str | None, since: datetime | None):
+def _filters(q: Select[Any], lot: str | None, since: datetime | None) -> Select[Any]:
     if lot:
         q = q.where(sessions.c.lot == lot)
     if since:
@@ -40,7 +42,7 @@ def _filters(q, lot: str | None, since: datetime | None):
     return q
 
 
-def list_sessions(cat: Catalog, lot: str | None = None, since: datetime | None = None) -> list[dict]:
+def list_sessions(cat: Catalog, lot: str | None = None, since: datetime | None = None) -> list[dict[str, Any]]:
     """One row per session: ids, wafer, lot, chip, operator, station, dates,
     status, and counts of site outcomes (pass, warn, fail incl. given up,
     accepted-fail, skipped, open), oldest first."""
@@ -67,11 +69,11 @@ class Trend:
     site: str
     unit: str
     f_hz: float | None
-    points: list[dict] = field(default_factory=list)
+    points: list[dict[str, Any]] = field(default_factory=list)
 
     @property
-    def per_wafer(self) -> list[dict]:
-        groups: dict[tuple, list[dict]] = {}
+    def per_wafer(self) -> list[dict[str, Any]]:
+        groups: dict[tuple[Any, ...], list[dict[str, Any]]] = {}
         for p in self.points:
             groups.setdefault((p["lot"], p["wafer"], p["session_id"]), []).append(p)
         out = []
@@ -90,14 +92,14 @@ def quantities(cat: Catalog) -> list[str]:
     return list(METRIC_COLUMNS) + [PAD_FREE + m for m in METRIC_COLUMNS] + names
 
 
-def _pick_f(conn, col, source, where, at_hz: float | None, what: str) -> float:
+def _pick_f(conn: Connection, col: Any, source: Any, where: Any, at_hz: float | None, what: str) -> float:
     freqs = sorted(r[0] for r in conn.execute(select(col).distinct().select_from(source).where(where))
                    if r[0] is not None)
     if not freqs:
         raise CatalogError(f"{what}: no kept landings with this figure in the catalog")
     if at_hz is None:
-        return freqs[len(freqs) // 2]
-    return min(freqs, key=lambda f: abs(f - at_hz))
+        return float(freqs[len(freqs) // 2])
+    return float(min(freqs, key=lambda f: abs(f - at_hz)))
 
 
 def trend(cat: Catalog, quantity: str, site: str, at_hz: float | None = None,
@@ -146,7 +148,7 @@ def trend(cat: Catalog, quantity: str, site: str, at_hz: float | None = None,
         q = _filters(q, lot, since).order_by(sessions.c.opened_at, sessions.c.session_id)
         rows = [dict(r._mapping) for r in conn.execute(q)]
     if f is not None:  # one value per (session, die): the one nearest the chosen frequency
-        best: dict[tuple, dict] = {}
+        best: dict[tuple[Any, ...], dict[str, Any]] = {}
         for r in rows:
             k = (r["session_id"], r["die_col"], r["die_row"])
             if k not in best or abs(r["f_hz"] - f) < abs(best[k]["f_hz"] - f):
@@ -158,7 +160,7 @@ def trend(cat: Catalog, quantity: str, site: str, at_hz: float | None = None,
 
 
 def yield_table(cat: Catalog, lot: str | None = None, since: datetime | None = None,
-                site: str | None = None) -> list[dict]:
+                site: str | None = None) -> list[dict[str, Any]]:
     """Per wafer (session) and site: dies that passed, warned, failed (given up),
     were accepted despite a FAIL, skipped; ``yield`` = (pass + warn) / decided."""
     cols = [func.sum(case((site_results.c.outcome == o, 1), else_=0)).label(o.replace("-", "_"))
@@ -180,13 +182,13 @@ def yield_table(cat: Catalog, lot: str | None = None, since: datetime | None = N
     return rows
 
 
-def wear(cat: Catalog, lot: str | None = None, since: datetime | None = None) -> list[dict]:
+def wear(cat: Catalog, lot: str | None = None, since: datetime | None = None) -> list[dict[str, Any]]:
     """Touchdowns per probe id summed over sessions, with the wear limit of the
     most recent plan that used the probe and the share of it used."""
     q = select(touchdowns.c.probe_id, touchdowns.c.touchdowns, sessions.c.wear_limit, sessions.c.opened_at) \
         .select_from(touchdowns.join(sessions, sessions.c.session_id == touchdowns.c.session_id)) \
         .order_by(sessions.c.opened_at)
-    out: dict[str, dict] = {}
+    out: dict[str, dict[str, Any]] = {}
     with cat.engine.connect() as conn:
         for r in conn.execute(_filters(q, lot, since)):
             w = out.setdefault(r.probe_id, {"probe_id": r.probe_id, "sessions": 0, "touchdowns": 0,
@@ -201,7 +203,7 @@ def wear(cat: Catalog, lot: str | None = None, since: datetime | None = None) ->
     return sorted(out.values(), key=lambda w: w["probe_id"])
 
 
-def agreement_over_time(cat: Catalog, lot: str | None = None, since: datetime | None = None) -> list[dict]:
+def agreement_over_time(cat: Catalog, lot: str | None = None, since: datetime | None = None) -> list[dict[str, Any]]:
     """Every calibration comparison: when, which methods, the worst bound and verdict."""
     q = select(sessions.c.lot, sessions.c.wafer, sessions.c.station, cal_agreement) \
         .select_from(cal_agreement.join(sessions, sessions.c.session_id == cal_agreement.c.session_id)) \

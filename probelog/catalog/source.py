@@ -42,20 +42,20 @@ class SessionRecord:
     without ``session_id``."""
 
     session: dict[str, Any]
-    site_results: list[dict] = field(default_factory=list)
-    checks: list[dict] = field(default_factory=list)
-    metrics: list[dict] = field(default_factory=list)
-    line_figures: list[dict] = field(default_factory=list)
-    touchdowns: list[dict] = field(default_factory=list)
-    cal_agreement: list[dict] = field(default_factory=list)
+    site_results: list[dict[str, Any]] = field(default_factory=list)
+    checks: list[dict[str, Any]] = field(default_factory=list)
+    metrics: list[dict[str, Any]] = field(default_factory=list)
+    line_figures: list[dict[str, Any]] = field(default_factory=list)
+    touchdowns: list[dict[str, Any]] = field(default_factory=list)
+    cal_agreement: list[dict[str, Any]] = field(default_factory=list)
 
     @property
     def session_id(self) -> str:
-        return self.session["session_id"]
+        return str(self.session["session_id"])
 
     @property
     def damaged(self) -> bool:
-        return self.session["status"] == "damaged"
+        return bool(self.session["status"] == "damaged")
 
 
 def parse_ts(ts: Any) -> datetime | None:
@@ -83,7 +83,7 @@ def _ref(v: Any) -> tuple[str, str]:
 
 def _damaged_record(path: Path, problem: str) -> SessionRecord:
     """A session whose journal cannot be read: one row that says so."""
-    sid, opened = path.name, {}
+    sid, opened = path.name, dict[str, Any]()
     try:
         with open(path / JOURNAL_NAME, "rb") as fh:
             first = json.loads(fh.readline())
@@ -96,8 +96,9 @@ def _damaged_record(path: Path, problem: str) -> SessionRecord:
     return SessionRecord(row)
 
 
-def _session_row(path: Path, sid: str, opened: dict, events: list[dict], problem: str) -> dict:
-    bench = opened.get("bench") if isinstance(opened.get("bench"), dict) else {}
+def _session_row(path: Path, sid: str, opened: dict[str, Any], events: list[dict[str, Any]], problem: str) -> dict[str, Any]:
+    b = opened.get("bench")
+    bench: dict[str, Any] = b if isinstance(b, dict) else {}
     closed = next((e for e in reversed(events) if e["type"] == "session-closed"), None)
     wear = None
     try:
@@ -175,9 +176,9 @@ def read_session(path: str | Path, line_figures: bool = True) -> SessionRecord:
     return rec
 
 
-def _fold_sites(rec: SessionRecord, events: list[dict], sites: dict[str, dict], bad: set[str]) -> None:
-    landed: dict[tuple, dict[int, dict]] = {}
-    final: dict[tuple, dict] = {}
+def _fold_sites(rec: SessionRecord, events: list[dict[str, Any]], sites: dict[str, dict[str, Any]], bad: set[str]) -> None:
+    landed: dict[tuple[Any, ...], dict[int, dict[str, Any]]] = {}
+    final: dict[tuple[Any, ...], dict[str, Any]] = {}
     for ev in events:
         t, p = ev["type"], ev["payload"]
         if t not in ("landing", "decision"):
@@ -205,7 +206,7 @@ def _fold_sites(rec: SessionRecord, events: list[dict], sites: dict[str, dict], 
             row["verdict"] = str(last["payload"].get("verdict") or "")
             row["kind"] = str(last["payload"].get("kind") or row["kind"])
         action = dec.get("action") if dec else None
-        kept = tries.get(int(dec.get("landing") or 0)) if action == "accept" else None
+        kept = tries.get(int(dec.get("landing") or 0)) if dec is not None and action == "accept" else None
         if action == "accept" and kept is not None:
             p = kept["payload"]
             verdict = str(p.get("verdict") or "")
@@ -226,7 +227,7 @@ def _fold_sites(rec: SessionRecord, events: list[dict], sites: dict[str, dict], 
         rec.site_results.append(row)
 
 
-def _kept_rows(rec: SessionRecord, ev: dict) -> None:
+def _kept_rows(rec: SessionRecord, ev: dict[str, Any]) -> None:
     p, seq = ev["payload"], ev["seq"]
     seen = set()
     for c in p.get("checks") or []:
@@ -251,7 +252,7 @@ def _kept_rows(rec: SessionRecord, ev: dict) -> None:
             rec.metrics.append(row)
 
 
-def _fold_bench(rec: SessionRecord, events: list[dict]) -> None:
+def _fold_bench(rec: SessionRecord, events: list[dict[str, Any]]) -> None:
     wear: dict[str, int] = {}
     for ev in events:
         p = ev["payload"]
@@ -268,15 +269,15 @@ def _fold_bench(rec: SessionRecord, events: list[dict]) -> None:
     rec.touchdowns = [{"probe_id": k, "touchdowns": v} for k, v in sorted(wear.items())]
 
 
-def _line_figures(rec: SessionRecord, root: Path, sites: dict[str, dict]) -> None:
+def _line_figures(rec: SessionRecord, root: Path, sites: dict[str, dict[str, Any]]) -> None:
     """Pad-free figures per die and line family from the kept sweeps (corrected,
     else raw) whose files passed their hash check."""
     import skrf
 
     from probelog.lines import default_frequencies
 
-    by_die: dict[tuple[int, int], list] = {}
-    files: dict[tuple, str] = {}
+    by_die: dict[tuple[int, int], list[Any]] = {}
+    files: dict[tuple[Any, ...], str] = {}
     for row in rec.site_results:
         ls = line_site(row["site"], sites.get(row["site"], {}))
         rel = row["corrected_file"] or row["raw_file"]

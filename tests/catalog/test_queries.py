@@ -46,7 +46,7 @@ def filled(db_url, demo_sessions):
 def test_list_counts_each_session(filled, demo_sessions):
     rows = list_sessions(filled)
     assert [r["wafer"] for r in rows] == ["QF2611-W07", "QF2611-W07"]
-    for r, s in zip(rows, demo_sessions):
+    for r, s in zip(rows, demo_sessions, strict=True):
         accepted = sum(1 for e in _events(s) if e["type"] == "decision" and e["payload"]["action"] == "accept")
         assert r["pass"] + r["warn"] + r["accepted_fail"] == accepted
         assert r["status"] == "ok" and r["completed"] is True

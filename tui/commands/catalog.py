@@ -81,7 +81,7 @@ def _open(args):
         raise UsageError(str(exc)) from None
 
 
-def _table(title: str, headings: list[str], rows: list[list], right: set[int] = frozenset()) -> None:
+def _table(title: str, headings: list[str], rows: list[list], right: frozenset[int] | set[int] = frozenset()) -> None:
     from rich.console import Console
     from rich.table import Table
 
