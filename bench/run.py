@@ -426,8 +426,15 @@ def bench_ui(quick: bool):
     measure_ui(report, quick)
 
 
+def bench_catalog(quick: bool):
+    from catalog_bench import run  # bench/catalog_bench.py: synthetic sessions into SQLite and PostgreSQL
+
+    run(report, quick)
+
+
 BENCHES = {
     "block": bench_block,
+    "catalog": bench_catalog,
     "checks": bench_checks,
     "journal": bench_journal,
     "landing": bench_landing,

@@ -50,11 +50,18 @@ def _run_demo(out: Path, *extra: str) -> Path:
 
 
 @pytest.fixture(scope="session")
-def demo_sessions(tmp_path_factory):
+def run_catalog(tmp_path_factory):
+    """The SQLite catalog the first demo run adds itself to (``run --catalog``)."""
+    return tmp_path_factory.mktemp("run-catalog") / "catalog.sqlite"
+
+
+@pytest.fixture(scope="session")
+def demo_sessions(tmp_path_factory, run_catalog):
     """Two demo sessions of the simulated bench (seeds 7 and 8), written once per
-    test run; tests copy them before changing anything."""
+    test run; tests copy them before changing anything. The first run adds
+    itself to ``run_catalog`` as it closes."""
     root = tmp_path_factory.mktemp("demo-sessions")
-    return [_run_demo(root, "--seed", "7"), _run_demo(root, "--seed", "8")]
+    return [_run_demo(root, "--seed", "7", "--catalog", str(run_catalog)), _run_demo(root, "--seed", "8")]
 
 
 @pytest.fixture

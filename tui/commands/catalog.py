@@ -230,5 +230,53 @@ def _cmd_report(cat, args) -> int:
     return 0
 
 
+def with_catalog(url: str, engine_factory, on_open: bool = False):
+    """``probelog run --catalog URL``: check the catalog answers now (one line
+    and exit 2 if not), then wrap ``engine_factory`` so that each engine's
+    session is added to the catalog when the engine closes (and, with
+    ``on_open``, also as soon as a resumed session opens). A failed add is said
+    on stderr and never stops or fails the run: the session folder is the record."""
+    from probelog.catalog.db import CatalogError, open_catalog
+    from tui.cli import UsageError
+
+    try:
+        open_catalog(url).close()
+    except CatalogError as exc:
+        raise UsageError(f"--catalog: {exc}") from None
+
+    def add(folder) -> None:
+        from sqlalchemy.exc import SQLAlchemyError
+
+        from probelog.catalog.ingest import add_session
+
+        try:
+            cat = open_catalog(url)
+            try:
+                a = add_session(cat, folder)
+            finally:
+                cat.close()
+        except (CatalogError, SQLAlchemyError, ValueError, OSError) as exc:
+            print(f"probelog run: session not added to the catalog ({' '.join(str(exc).split())}); "
+                  f"later: probelog catalog add {folder} --db ...", file=sys.stderr)
+            return
+        print(f"catalog: {a.action} {a.session_id} ({a.kept} kept landings) in {cat.url}", file=sys.stderr)
+
+    def factory(*request, **kw):
+        engine = engine_factory(*request, **kw)
+        close = engine.close
+
+        def close_and_add(*a, **k):
+            result = close(*a, **k)
+            add(engine.session_dir)
+            return result
+
+        engine.close = close_and_add
+        if on_open:
+            add(engine.session_dir)
+        return engine
+
+    return factory
+
+
 _ACTIONS = {"add": _cmd_add, "scan": _cmd_scan, "list": _cmd_list, "trend": _cmd_trend, "yield": _cmd_yield,
             "wear": _cmd_wear, "export": _cmd_export, "report": _cmd_report}

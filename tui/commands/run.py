@@ -19,6 +19,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--retries", type=int, default=2, metavar="N",
                         help="headless: re-landings of a failing site before giving up (default 2)")
     parser.add_argument("--headless", action="store_true", help="no UI: accept passes, re-land failures, go on")
+    parser.add_argument("--catalog", metavar="URL", help="add the session to this catalog (SQLite path or "
+                        "postgresql://...) as it closes, and when a --resume opens it")
     add_bench_arguments(parser)
 
 
@@ -59,6 +61,10 @@ def run(args: argparse.Namespace) -> int:
 
         return build_bench(args, probe_ids, confirm)
 
+    if args.catalog:  # checked before any probing; the session is added as it closes
+        from tui.commands.catalog import with_catalog
+
+        engine_factory = with_catalog(args.catalog, engine_factory, on_open=bool(args.resume))
     if not args.headless:
         from probelog.tui.app import run_app
 
