@@ -2,14 +2,13 @@
 
 It turns a session (journal plus data files) into a :class:`SessionRecord`:
 plain rows for the catalog's tables. Nothing else in ``probelog.catalog`` reads
-journal lines. Today it reads through ``probelog.manifest.read_journal`` and
-``probelog.journal.verify`` (the hash chain and every data file's SHA-256);
-when the typed session state lands it is the only module to switch.
+the journal. It decodes the events with ``probelog.events`` and folds them into
+``probelog.state.SessionState`` (the one reading of a session), after
+``probelog.journal.verify`` re-walked the hash chain and every data file's SHA-256.
 
-Kept landing: the landing a site's final decision accepted (``accept``,
-including an accept of a landing whose verdict was FAIL, recorded as outcome
-``accepted-fail``). Outcomes per (die, site): pass, warn, accepted-fail,
-given-up, skipped, or open (landed, not decided yet).
+Kept landing: the landing a site's final decision accepted (``accept``, or
+``accept-despite-fail``: outcome ``accepted-fail``). Outcomes per (die, site):
+pass, warn, accepted-fail, given-up, skipped, or open (landed, not decided yet).
 """
 
 from __future__ import annotations
@@ -24,9 +23,11 @@ from typing import Any
 import numpy as np
 
 from probelog.catalog.schema import METRIC_COLUMNS as METRIC_NAMES
+from probelog import events as ev
 from probelog.journal import JournalError, verify
 from probelog.line_pairs import figures_at, line_site, pad_free_metrics, pairs_on_die
-from probelog.manifest import JOURNAL_NAME, SessionFormatError, plan_sites, read_journal
+from probelog.manifest import JOURNAL_NAME, SessionFormatError, plan_sites
+from probelog.state import LandingRec, SessionState, fold
 
 FINAL_ACTIONS = ("accept", "skip", "give-up")
 
@@ -96,26 +97,28 @@ def _damaged_record(path: Path, problem: str) -> SessionRecord:
     return SessionRecord(row)
 
 
-def _session_row(path: Path, sid: str, opened: dict[str, Any], events: list[dict[str, Any]], problem: str) -> dict[str, Any]:
-    b = opened.get("bench")
+def _session_row(path: Path, sid: str, opened: Any, events: list[ev.Event], problem: str) -> dict[str, Any]:
+    """The sessions row; ``opened`` a SessionOpened or the raw first payload (dict)."""
+    get = opened.get if isinstance(opened, dict) else (lambda k, d=None: getattr(opened, k, d))
+    b = get("bench")
     bench: dict[str, Any] = b if isinstance(b, dict) else {}
-    closed = next((e for e in reversed(events) if e["type"] == "session-closed"), None)
+    closed = next((e for e in reversed(events) if isinstance(e.data, ev.SessionClosed)), None)
     wear = None
     try:
-        probes = tomllib.loads(opened.get("plan_text") or "").get("probes", {})
+        probes = tomllib.loads(get("plan_text") or "").get("probes", {})
         wear = int(probes["wear_warn_touchdowns"]) if "wear_warn_touchdowns" in probes else None
     except (tomllib.TOMLDecodeError, TypeError, ValueError):
         pass
     return {
         "session_id": sid, "path": str(path.resolve()),
-        "wafer": str(opened.get("wafer") or ""), "lot": str(opened.get("lot") or ""),
-        "chip": str(opened.get("chip") or ""), "plan_name": str(opened.get("plan_name") or ""),
-        "plan_sha256": str(opened.get("plan_sha256") or ""), "operator": str(opened.get("operator") or ""),
+        "wafer": str(get("wafer") or ""), "lot": str(get("lot") or ""),
+        "chip": str(get("chip") or ""), "plan_name": str(get("plan_name") or ""),
+        "plan_sha256": str(get("plan_sha256") or ""), "operator": str(get("operator") or ""),
         "station": str(bench.get("prober_idn") or bench.get("description") or bench.get("kind") or ""),
-        "probelog_version": str(opened.get("probelog_version") or ""),
-        "opened_at": parse_ts(events[0]["ts"]) if events else None,
-        "closed_at": parse_ts(closed["ts"]) if closed else None,
-        "completed": bool(closed and closed["payload"].get("completed")),
+        "probelog_version": str(get("probelog_version") or ""),
+        "opened_at": parse_ts(events[0].ts) if events else None,
+        "closed_at": parse_ts(closed.ts) if closed else None,
+        "completed": bool(closed is not None and isinstance(closed.data, ev.SessionClosed) and closed.data.completed),
         "status": "damaged" if problem else "ok", "problem": problem,
         "n_events": len(events), "last_hash": "", "wear_limit": wear,
     }
@@ -155,118 +158,93 @@ def read_session(path: str | Path, line_figures: bool = True) -> SessionRecord:
         raise NotASession(f"{path}: not a folder")
     if not (path / JOURNAL_NAME).is_file():
         raise NotASession(f"{path}: not a probelog session (no {JOURNAL_NAME})")
+    damage = ""
     try:
         damage, bad_files, last_hash, _notes = _integrity(path)
-        journal = read_journal(path)
-    except (SessionFormatError, JournalError) as exc:
-        return _damaged_record(path, str(exc))
-    events = journal.events
-    opened = events[0]["payload"]
-    sid = str(opened.get("session_id") or path.name)
+        events = ev.read_session(path)
+        if not events or not isinstance(events[0].data, ev.SessionOpened):
+            raise ev.EventError(f"{path / JOURNAL_NAME}:1: the first event is not 'session-opened'")
+        state = fold(events)
+    except (ev.EventError, JournalError, OSError) as exc:
+        # verify names the line; the decoder's message is the fallback
+        return _damaged_record(path, damage or " ".join(str(exc).split()))
+    opened = events[0].data
+    sid = str(opened.session_id or path.name)
     rec = SessionRecord(_session_row(path, sid, opened, events, damage))
     rec.session["last_hash"] = last_hash
     try:
-        sites = plan_sites(opened.get("plan_text"))
+        sites = plan_sites(opened.plan_text)
     except SessionFormatError:
         sites = {}
-    _fold_sites(rec, events, sites, bad_files)
-    _fold_bench(rec, events)
+    _fold_sites(rec, state, sites, bad_files)
+    rec.touchdowns = [{"probe_id": k, "touchdowns": v} for k, v in sorted(state.touchdowns.items())]
+    rec.cal_agreement = [{"seq": e.seq, "cal_id": e.data.cal_id, "method": e.data.method,
+                          "other_method": e.data.other_method, "worst": _num(e.data.worst),
+                          "at_hz": _num(e.data.at_hz), "verdict": e.data.verdict.value, "ts": parse_ts(e.ts)}
+                         for e in events if isinstance(e.data, ev.CalAgreement)]
     if line_figures:
         _line_figures(rec, path, sites)
     return rec
 
 
-def _fold_sites(rec: SessionRecord, events: list[dict[str, Any]], sites: dict[str, dict[str, Any]], bad: set[str]) -> None:
-    landed: dict[tuple[Any, ...], dict[int, dict[str, Any]]] = {}
-    final: dict[tuple[Any, ...], dict[str, Any]] = {}
-    for ev in events:
-        t, p = ev["type"], ev["payload"]
-        if t not in ("landing", "decision"):
-            continue
-        die = p.get("die") or [None, None]
-        key = (int(die[0]), int(die[1]), str(p.get("site")))
-        if t == "landing":
-            landed.setdefault(key, {})[int(p.get("landing") or 0)] = ev
-        elif p.get("action") in FINAL_ACTIONS:
-            final[key] = p
-    for key in sorted(set(landed) | set(final), key=lambda k: (k[0], k[1], k[2])):
-        tries = landed.get(key, {})
-        dec = final.get(key)
-        geo = sites.get(key[2], {})
-        row: dict[str, Any] = {
-            "die_col": key[0], "die_row": key[1], "site": key[2], "kind": str(geo.get("kind") or ""),
-            "landings": len(tries), "kept_seq": None, "kept_landing": None, "ts": None, "verdict": "",
-            "cal_id": "", "raw_file": "", "raw_sha256": "", "corrected_file": "", "corrected_sha256": "",
-            "files_ok": None, "line_type": str(geo.get("line_type") or ""), "metal": str(geo.get("metal") or ""),
-            "width_um": _num(geo.get("width_um")), "gap_um": _num(geo.get("gap_um")),
-            "length_um": _num(geo.get("length_um")),
-        }
-        last = tries[max(tries)] if tries else None
-        if last is not None:
-            row["verdict"] = str(last["payload"].get("verdict") or "")
-            row["kind"] = str(last["payload"].get("kind") or row["kind"])
-        action = dec.get("action") if dec else None
-        kept = tries.get(int(dec.get("landing") or 0)) if dec is not None and action == "accept" else None
-        if action == "accept" and kept is not None:
-            p = kept["payload"]
-            verdict = str(p.get("verdict") or "")
-            raw, raw_sha = _ref(p.get("raw"))
-            cor, cor_sha = _ref(p.get("corrected"))
-            row.update(kept_seq=kept["seq"], kept_landing=int(p.get("landing") or 0), ts=parse_ts(kept["ts"]),
-                       verdict=verdict, cal_id=str(p.get("cal_id") or ""), raw_file=raw, raw_sha256=raw_sha,
-                       corrected_file=cor, corrected_sha256=cor_sha,
-                       files_ok=not ({raw, cor} & bad))
-            row["outcome"] = "accepted-fail" if verdict == "fail" else (verdict or "pass")
-            _kept_rows(rec, kept)
-        elif action == "skip":
-            row["outcome"] = "skipped"
-        elif action == "give-up":
-            row["outcome"] = "given-up"
-        else:
-            row["outcome"] = "open"
-        rec.site_results.append(row)
+_OUTCOME = {ev.ACCEPT_DESPITE_FAIL: "accepted-fail", ev.SKIP: "skipped", ev.GIVE_UP: "given-up"}
 
 
-def _kept_rows(rec: SessionRecord, ev: dict[str, Any]) -> None:
-    p, seq = ev["payload"], ev["seq"]
+def _fold_sites(rec: SessionRecord, state: SessionState, sites: dict[str, dict[str, Any]], bad: set[str]) -> None:
+    for die, by_site in sorted(state.sites.items()):
+        for name, srec in sorted(by_site.items()):
+            last = srec.last_landing
+            if last is None and srec.decision is None:
+                continue  # only drift re-measures of a reference site
+            geo = sites.get(name, {})
+            row: dict[str, Any] = {
+                "die_col": die[0], "die_row": die[1], "site": name,
+                "kind": (last.kind if last else "") or str(geo.get("kind") or ""),
+                "landings": sum(1 for x in srec.landings if x.what == "landing"),
+                "kept_seq": None, "kept_landing": None, "ts": None,
+                "verdict": last.verdict.value if last else "", "cal_id": "", "raw_file": "", "raw_sha256": "",
+                "corrected_file": "", "corrected_sha256": "", "files_ok": None,
+                "line_type": str(geo.get("line_type") or ""), "metal": str(geo.get("metal") or ""),
+                "width_um": _num(geo.get("width_um")), "gap_um": _num(geo.get("gap_um")),
+                "length_um": _num(geo.get("length_um")),
+            }
+            kept = srec.accepted_landing
+            action = srec.decision.action if srec.decision else None
+            if kept is not None:
+                raw = kept.raw.path if kept.raw else ""
+                cor = kept.corrected.path if kept.corrected else ""
+                row.update(kept_seq=kept.seq, kept_landing=kept.landing, ts=parse_ts(kept.ts),
+                           verdict=kept.verdict.value, cal_id=kept.cal_id or "",
+                           raw_file=raw, raw_sha256=kept.raw.sha256 if kept.raw else "",
+                           corrected_file=cor, corrected_sha256=kept.corrected.sha256 if kept.corrected else "",
+                           files_ok=not ({raw, cor} & bad))
+                row["outcome"] = _OUTCOME.get(action or "", kept.verdict.value)
+                _kept_rows(rec, kept)
+            else:
+                row["outcome"] = _OUTCOME.get(action or "", "open")
+            rec.site_results.append(row)
+
+
+def _kept_rows(rec: SessionRecord, kept: LandingRec) -> None:
     seen = set()
-    for c in p.get("checks") or []:
-        name = str(c.get("name") or "check")
-        if name in seen:
+    for c in kept.checks:
+        if c.name in seen:
             continue
-        seen.add(name)
-        rec.checks.append({"seq": seq, "name": name, "verdict": str(c.get("verdict") or ""),
-                           "value": _num(c.get("value")), "limit_value": _num(c.get("limit")),
-                           "at_hz": _num(c.get("at_hz")), "unit": str(c.get("unit") or "")})
-    m = p.get("metrics")
-    if isinstance(m, dict) and isinstance(m.get("f_hz"), list):
+        seen.add(c.name)
+        rec.checks.append({"seq": kept.seq, "name": c.name, "verdict": c.verdict.value, "value": _num(c.value),
+                           "limit_value": _num(c.limit), "at_hz": _num(c.at_hz), "unit": c.unit})
+    m = kept.metrics
+    if m and isinstance(m.get("f_hz"), list):
         freqs = m["f_hz"]
         cols = {n: v for n in METRIC_NAMES if isinstance(v := m.get(n), list) and len(v) == len(freqs)}
-        seen_f = set()
+        seen_f: set[float] = set()
         for i, f in enumerate(freqs):
-            if _num(f) is None or f in seen_f:
+            if f is None or _num(f) is None or f in seen_f:
                 continue
             seen_f.add(f)
-            row = {"seq": seq, "f_hz": float(f)}
+            row: dict[str, Any] = {"seq": kept.seq, "f_hz": float(f)}
             row.update({n: _num(cols[n][i]) if n in cols else None for n in METRIC_NAMES})
             rec.metrics.append(row)
-
-
-def _fold_bench(rec: SessionRecord, events: list[dict[str, Any]]) -> None:
-    wear: dict[str, int] = {}
-    for ev in events:
-        p = ev["payload"]
-        td = p.get("touchdowns")
-        if isinstance(td, dict):
-            for probe, n in td.items():
-                if isinstance(n, int) and not isinstance(n, bool):
-                    wear[str(probe)] = max(wear.get(str(probe), 0), n)
-        if ev["type"] == "cal-agreement":
-            rec.cal_agreement.append({
-                "seq": ev["seq"], "cal_id": str(p.get("cal_id") or ""), "method": str(p.get("method") or ""),
-                "other_method": str(p.get("other_method") or ""), "worst": _num(p.get("worst")),
-                "at_hz": _num(p.get("at_hz")), "verdict": str(p.get("verdict") or ""), "ts": parse_ts(ev["ts"])})
-    rec.touchdowns = [{"probe_id": k, "touchdowns": v} for k, v in sorted(wear.items())]
 
 
 def _line_figures(rec: SessionRecord, root: Path, sites: dict[str, dict[str, Any]]) -> None:

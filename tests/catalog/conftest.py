@@ -42,7 +42,7 @@ def db_url(request, tmp_path):
 def _run_demo(out: Path, *extra: str) -> Path:
     out.mkdir(parents=True, exist_ok=True)
     before = set(out.iterdir())
-    res = subprocess.run([sys.executable, "-m", "tui", "run", "demo", "--headless", "--dir", str(out),
+    res = subprocess.run([sys.executable, "-m", "probelog.tui", "run", "demo", "--headless", "--dir", str(out),
                           "--fault-rate", "0", *extra], capture_output=True, text=True, cwd=ROOT, timeout=300)
     assert res.returncode == 0, res.stderr[-2000:]
     (new,) = set(out.iterdir()) - before

@@ -58,7 +58,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _since(text: str | None) -> datetime | None:
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     if not text:
         return None
@@ -69,7 +69,7 @@ def _since(text: str | None) -> datetime | None:
 
 
 def _open(args):
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     try:
         from probelog.catalog.db import CatalogError, open_catalog
@@ -102,7 +102,7 @@ def _day(t) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     from sqlalchemy.exc import SQLAlchemyError
 
@@ -140,7 +140,7 @@ def _cmd_add(cat, args) -> int:
 
 def _cmd_scan(cat, args) -> int:
     from probelog.catalog.ingest import find_sessions
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     if not Path(args.dir).is_dir():
         raise UsageError(f"{args.dir}: not a folder")
@@ -178,7 +178,7 @@ def _cmd_trend(cat, args) -> int:
              _g(w["min"]), _g(w["max"])] for w in t.per_wafer], right={4, 5, 6, 7})
     if args.plot:
         from probelog.catalog.plots import to_bytes, trend_figure
-        from tui.cli import UsageError
+        from probelog.tui.cli import UsageError
 
         fmt = Path(args.plot).suffix.lower().lstrip(".")
         if fmt not in ("png", "svg"):
@@ -237,7 +237,7 @@ def with_catalog(url: str, engine_factory, on_open: bool = False):
     ``on_open``, also as soon as a resumed session opens). A failed add is said
     on stderr and never stops or fails the run: the session folder is the record."""
     from probelog.catalog.db import CatalogError, open_catalog
-    from tui.cli import UsageError
+    from probelog.tui.cli import UsageError
 
     try:
         open_catalog(url).close()

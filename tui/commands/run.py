@@ -62,7 +62,7 @@ def run(args: argparse.Namespace) -> int:
         return build_bench(args, probe_ids, confirm)
 
     if args.catalog:  # checked before any probing; the session is added as it closes
-        from tui.commands.catalog import with_catalog
+        from probelog.tui.commands.catalog import with_catalog
 
         engine_factory = with_catalog(args.catalog, engine_factory, on_open=bool(args.resume))
     if not args.headless:

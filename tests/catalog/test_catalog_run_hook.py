@@ -7,10 +7,11 @@ import json
 import socket
 import subprocess
 import sys
+from pathlib import Path
 
 from probelog.catalog.db import open_catalog
 from probelog.catalog.queries import list_sessions
-from tests.catalog.conftest import ROOT
+ROOT = Path(__file__).resolve().parents[2]
 
 
 def test_a_headless_run_adds_its_session_as_it_closes(demo_sessions, run_catalog):
@@ -28,7 +29,7 @@ def test_a_catalog_that_does_not_answer_stops_the_run_before_probing(tmp_path):
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         port = s.getsockname()[1]
-    res = subprocess.run([sys.executable, "-m", "tui", "run", "demo", "--headless", "--dir", str(tmp_path),
+    res = subprocess.run([sys.executable, "-m", "probelog.tui", "run", "demo", "--headless", "--dir", str(tmp_path),
                           "--catalog", f"postgresql://lab@127.0.0.1:{port}/lab"],
                          capture_output=True, text=True, cwd=ROOT, timeout=120)
     assert res.returncode == 2

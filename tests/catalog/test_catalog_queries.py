@@ -12,7 +12,7 @@ from probelog.catalog.db import CatalogError, open_catalog
 from probelog.catalog.ingest import add_session
 from probelog.catalog.parquet import export_parquet
 from probelog.catalog.queries import list_sessions, trend, wear, yield_table
-from tui.cli import main
+from probelog.tui.cli import main
 
 
 def _events(session_dir):
