@@ -25,6 +25,8 @@ from typing import Any, Callable
 
 import numpy as np
 
+from probelog.pad_free_bundle import add_pad_free_columns
+
 from probelog.manifest import (
     JOURNAL_NAME,
     SessionFormatError,
@@ -253,6 +255,7 @@ def _write_bundle(session_dir: Path, journal, out: Path, progress: bool, metric:
         # parse (from the session) and validate before copying anything
         networks, unread = load_networks(index, session_dir, task("reading sweeps", len(index.rows)))
         compute_missing_metrics(index, networks)
+        add_pad_free_columns(index, networks)  # two lengths of a line on a die: figures free of the pads
         if metric is not None and metric not in numeric_columns(index):
             names = numeric_columns(index)
             shown = ", ".join(names[:20]) + (f" and {len(names) - 20} more" if len(names) > 20 else "")

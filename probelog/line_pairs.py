@@ -107,4 +107,37 @@ def figures_at(metrics: LineMetrics, freqs_hz: Any) -> list[dict[str, float | No
     return [{k: v[i] for k, v in cols.items()} for i in range(n)]
 
 
-__all__ = ["LineSite", "line_site", "pairs_on_die", "pad_free_metrics", "figures_at", "LINE_KINDS"]
+def die_figures(kept: list[tuple[tuple[int, int], str, Any]], sites: dict[str, dict[str, Any]]) -> list[dict[str, Any]]:
+    """Pad-free figures of every line family measured at two lengths on a die.
+
+    ``kept``: (die, site name, skrf.Network of its kept sweep) for the kept line
+    sweeps; ``sites``: the plan's site tables by name. Returns one dict a die,
+    family and reported frequency (the journal's round frequencies): die_col,
+    die_row, family, line_type, metal, width_um, gap_um, site_a, site_b,
+    length_a_um, length_b_um, z0_from and the keys of ``probelog.lines.JSON_KEYS``.
+    A pair whose sweeps do not fit (another grid, no line) gives no figures."""
+    from probelog.lines import default_frequencies
+
+    by_die: dict[tuple[int, int], list[LineSite]] = {}
+    nets: dict[tuple[tuple[int, int], str], Any] = {}
+    for die, name, ntwk in kept:
+        ls = line_site(name, sites.get(name, {}))
+        if ls is not None and ntwk is not None:
+            by_die.setdefault(die, []).append(ls)
+            nets[(die, name)] = ntwk
+    out: list[dict[str, Any]] = []
+    for die, lsites in by_die.items():
+        for a, b in pairs_on_die(lsites):
+            try:
+                m, z0_from = pad_free_metrics(nets[(die, a.name)], a, nets[(die, b.name)], b)
+            except (ValueError, IndexError, np.linalg.LinAlgError):
+                continue
+            for fig in figures_at(m, default_frequencies(m.f_hz, prefer_round=True)):
+                out.append({"die_col": die[0], "die_row": die[1], "family": a.family, "line_type": a.line_type,
+                            "metal": a.metal, "width_um": a.width_um, "gap_um": a.gap_um, "site_a": a.name,
+                            "site_b": b.name, "length_a_um": a.length_um, "length_b_um": b.length_um,
+                            "z0_from": z0_from, **fig})
+    return out
+
+
+__all__ = ["LineSite", "line_site", "pairs_on_die", "pad_free_metrics", "figures_at", "die_figures", "LINE_KINDS"]

@@ -24,6 +24,7 @@ from matplotlib import rc_context
 from matplotlib.figure import Figure
 from matplotlib.text import Text
 
+from probelog.pad_free_bundle import section as pad_free_section
 from probelog.manifest import ChainStatus, SessionIndex, check_column
 
 VERDICT_COLOURS = {"pass": "#2e7d32", "warn": "#ef8f00", "fail": "#c62828", "n/a": "#9e9e9e"}
@@ -566,12 +567,13 @@ def build_report(inp: ReportInputs) -> str:
     """The whole report as one self-contained HTML string (no external links)."""
     nav = "".join(f'<a href="#{a}">{t}</a>' for a, t in (
         ("summary", "Summary"), ("wafer", "Wafer map"), ("calibration", "Calibration"),
-        ("overlays", "Overlays"), ("lines", "Line metrics"), ("checks", "Checks"),
+        ("overlays", "Overlays"), ("lines", "Line metrics"), ("padfree", "Pad-free lines"), ("checks", "Checks"),
         ("retries", "Retries"), ("notes", "Notes")))
     # A user's matplotlibrc with text.usetex would hand '$', '_' or '%' in a label to TeX.
     with rc_context({"text.usetex": False, "text.parse_math": False}):
         body = "".join((_header(inp), f"<nav>{nav}</nav>", _summary(inp), _integrity(inp), _wafer_map(inp),
-                        _calibration(inp), _overlays(inp), _line_trends(inp), _checks(inp),
+                        _calibration(inp), _overlays(inp), _line_trends(inp),
+                        pad_free_section(inp.index, inp.networks), _checks(inp),
                         _retries_and_notes(inp)))
     title = html.escape(f"probelog report {inp.index.opened.get('session_id', '')}")
     return (f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>{title}</title>"

@@ -6,11 +6,12 @@ from __future__ import annotations
 
 import io
 from collections import defaultdict
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from probelog.catalog.queries import UNITS, Trend
+if TYPE_CHECKING:  # the bundle's report draws line figures without the catalog's database layer
+    from probelog.catalog.queries import Trend
 
 
 def _plt() -> Any:
@@ -136,4 +137,4 @@ def agreement_figure(rows: list[dict[str, Any]]) -> Any:
     return fig
 
 
-__all__ = ["trend_figure", "line_figures_figure", "wafer_maps_figure", "agreement_figure", "to_bytes", "UNITS"]
+__all__ = ["trend_figure", "line_figures_figure", "wafer_maps_figure", "agreement_figure", "to_bytes"]

@@ -25,7 +25,7 @@ import numpy as np
 from probelog.catalog.schema import METRIC_COLUMNS as METRIC_NAMES
 from probelog import events as ev
 from probelog.journal import JournalError, verify
-from probelog.line_pairs import figures_at, line_site, pad_free_metrics, pairs_on_die
+from probelog.line_pairs import die_figures, line_site
 from probelog.manifest import JOURNAL_NAME, SessionFormatError, plan_sites
 from probelog.state import LandingRec, SessionState, fold
 
@@ -252,32 +252,21 @@ def _line_figures(rec: SessionRecord, root: Path, sites: dict[str, dict[str, Any
     else raw) whose files passed their hash check."""
     import skrf
 
-    from probelog.lines import default_frequencies
-
-    by_die: dict[tuple[int, int], list[Any]] = {}
-    files: dict[tuple[Any, ...], str] = {}
+    kept = []
     for row in rec.site_results:
-        ls = line_site(row["site"], sites.get(row["site"], {}))
         rel = row["corrected_file"] or row["raw_file"]
-        if ls is None or row["kept_seq"] is None or not row["files_ok"] or not rel:
+        if line_site(row["site"], sites.get(row["site"], {})) is None or row["kept_seq"] is None \
+                or not row["files_ok"] or not rel:
             continue
-        die = (row["die_col"], row["die_row"])
-        by_die.setdefault(die, []).append(ls)
-        files[(die, ls.name)] = rel
-    for die, lsites in by_die.items():
-        for a, b in pairs_on_die(lsites):
-            try:
-                na = skrf.Network(str(root / files[(die, a.name)]))
-                nb = skrf.Network(str(root / files[(die, b.name)]))
-                m, z0_from = pad_free_metrics(na, a, nb, b)
-            except (OSError, ValueError, IndexError, np.linalg.LinAlgError):
-                continue  # e.g. a kept sweep that is no line: no figure rather than a wrong one
-            for fig in figures_at(m, default_frequencies(m.f_hz, prefer_round=True)):
-                rec.line_figures.append({
-                    "die_col": die[0], "die_row": die[1], "family": a.family, "f_hz": fig["f_hz"],
-                    "line_type": a.line_type, "metal": a.metal, "width_um": a.width_um, "gap_um": a.gap_um,
-                    "site_a": a.name, "site_b": b.name, "length_a_um": a.length_um, "length_b_um": b.length_um,
-                    **{k: fig[k] for k in METRIC_NAMES}, "z0_from": z0_from})
+        try:
+            ntwk = skrf.Network(str(root / rel))
+        except (OSError, ValueError, IndexError):
+            continue  # an unreadable sweep gives no figure rather than a wrong one
+        kept.append(((row["die_col"], row["die_row"]), row["site"], ntwk))
+    for fig in die_figures(kept, sites):
+        rec.line_figures.append({k: fig[k] for k in (
+            "die_col", "die_row", "family", "f_hz", "line_type", "metal", "width_um", "gap_um", "site_a", "site_b",
+            "length_a_um", "length_b_um", *METRIC_NAMES, "z0_from")})
 
 
 __all__ = ["read_session", "SessionRecord", "NotASession", "parse_ts", "METRIC_NAMES"]
