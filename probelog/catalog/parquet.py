@@ -18,6 +18,7 @@ journal hashes, with a self-describing header; as arrays, 201 points of a
 authoritative copy sits beside its hash. ``skrf.Network(row.corrected_path)``
 reads one back.
 
+Columns are built whole (numpy scatter, Arrow list offsets), not row by row.
 Written to a temporary folder beside ``out_dir`` and renamed at the end: a
 failed export leaves nothing half-written.
 """
@@ -30,6 +31,7 @@ import shutil
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 from sqlalchemy import select
 from sqlalchemy.engine import Connection
 
@@ -37,6 +39,9 @@ from probelog.catalog.db import Catalog, CatalogError
 from probelog.catalog.schema import METRIC_COLUMNS, checks, line_figures, metrics, sessions, site_results
 
 SESSION_COLS = ("session_id", "lot", "wafer", "chip", "operator", "station", "plan_name", "opened_at", "status")
+SITE_COLS = ("die_col", "die_row", "site", "kind", "outcome", "verdict", "landings", "kept_seq", "kept_landing",
+             "ts", "cal_id", "line_type", "metal", "width_um", "gap_um", "length_um", "files_ok",
+             "raw_sha256", "corrected_sha256")
 
 
 def check_column(name: str) -> str:
@@ -44,53 +49,79 @@ def check_column(name: str) -> str:
     return "chk_" + re.sub(r"[^0-9a-z]+", "_", name.lower()).strip("_")
 
 
-def _landing_rows(conn: Connection) -> tuple[list[dict[str, Any]], list[str]]:
-    q = select(*(sessions.c[c] for c in SESSION_COLS), sessions.c.path.label("session_path"),
-               *(c for c in site_results.c if c.name != "session_id")) \
+def _columns(rows: list[Any], names: tuple[str, ...] | list[str]) -> dict[str, list[Any]]:
+    cols = list(zip(*rows, strict=True)) if rows else [()] * len(names)
+    return {n: list(c) for n, c in zip(names, cols, strict=True)}
+
+
+def _landings_table(conn: Connection) -> Any:
+    import pyarrow as pa
+
+    q = select(*(sessions.c[c] for c in SESSION_COLS), sessions.c.path, site_results.c.raw_file,
+               site_results.c.corrected_file, *(site_results.c[c] for c in SITE_COLS)) \
         .select_from(site_results.join(sessions, sessions.c.session_id == site_results.c.session_id)) \
         .where(site_results.c.kept_seq.is_not(None)) \
         .order_by(sessions.c.opened_at, sessions.c.session_id, site_results.c.kept_seq)
-    rows = [dict(r._mapping) for r in conn.execute(q)]
-    index = {(r["session_id"], r["kept_seq"]): r for r in rows}
-    names: dict[str, None] = {}
-    for c in conn.execute(select(checks)):
-        r = index.get((c.session_id, c.seq))
-        if r is None:
-            continue
-        col = check_column(c.name)
-        names[col] = None
-        r[col], r[col + "_value"], r[col + "_limit"], r[col + "_at_hz"] = c.verdict, c.value, c.limit_value, c.at_hz
-    for m in conn.execute(select(metrics).order_by(metrics.c.session_id, metrics.c.seq, metrics.c.f_hz)):
-        r = index.get((m.session_id, m.seq))
-        if r is None:
-            continue
-        r.setdefault("metric_f_hz", []).append(m.f_hz)
-        for name in METRIC_COLUMNS:
-            r.setdefault(name, []).append(getattr(m, name))
-    for r in rows:
-        base = Path(r.pop("session_path"))
-        r["raw_path"] = str(base / r.pop("raw_file")) if r["raw_file"] else None
-        r["corrected_path"] = str(base / r.pop("corrected_file")) if r["corrected_file"] else None
-        r.pop("raw_file", None)
-        r.pop("corrected_file", None)
-    return rows, sorted(names)
-
-
-def _landings_table(rows: list[dict[str, Any]], check_cols: list[str]) -> Any:
-    import pyarrow as pa
+    names = (*SESSION_COLS, "path", "raw_file", "corrected_file", *SITE_COLS)
+    cols = _columns(conn.execute(q).all(), names)
+    n = len(cols["session_id"])
+    index = {k: i for i, k in enumerate(zip(cols["session_id"], cols["kept_seq"], strict=True))}
+    sep = os.sep
+    paths = cols.pop("path")
+    raw = cols.pop("raw_file")
+    cor = cols.pop("corrected_file")
+    cols["raw_path"] = [p + sep + r if r else None for p, r in zip(paths, raw, strict=True)]
+    cols["corrected_path"] = [p + sep + r if r else None for p, r in zip(paths, cor, strict=True)]
 
     f64, s = pa.float64(), pa.string()
-    fields = [(c, s) for c in SESSION_COLS if c != "opened_at"] + [("opened_at", pa.timestamp("ms"))] + [
-        ("die_col", pa.int32()), ("die_row", pa.int32()), ("site", s), ("kind", s), ("outcome", s),
-        ("verdict", s), ("landings", pa.int32()), ("kept_seq", pa.int64()), ("kept_landing", pa.int32()),
-        ("ts", pa.timestamp("ms")), ("cal_id", s), ("line_type", s), ("metal", s), ("width_um", f64),
-        ("gap_um", f64), ("length_um", f64), ("files_ok", pa.bool_()),
-        ("raw_path", s), ("raw_sha256", s), ("corrected_path", s), ("corrected_sha256", s)]
-    for c in check_cols:
-        fields += [(c, s), (c + "_value", f64), (c + "_limit", f64), (c + "_at_hz", f64)]
-    fields += [("metric_f_hz", pa.list_(f64))] + [(m, pa.list_(f64)) for m in METRIC_COLUMNS]
-    schema = pa.schema(fields)
-    return pa.Table.from_pydict({n: [r.get(n) for r in rows] for n in schema.names}, schema=schema)
+    types: dict[str, Any] = dict.fromkeys(names, s)
+    types.update(opened_at=pa.timestamp("ms"), ts=pa.timestamp("ms"), die_col=pa.int32(), die_row=pa.int32(),
+                 landings=pa.int32(), kept_seq=pa.int64(), kept_landing=pa.int32(), width_um=f64, gap_um=f64,
+                 length_um=f64, files_ok=pa.bool_())
+    arrays: dict[str, Any] = {c: pa.array(cols[c], type=types.get(c, s)) for c in
+                              (*SESSION_COLS, *SITE_COLS[:-2], "raw_path", "raw_sha256", "corrected_path",
+                               "corrected_sha256")}
+    # checks: one verdict / value / limit / at_hz column per check name, scattered by landing index
+    crow = conn.execute(select(checks.c.session_id, checks.c.seq, checks.c.name, checks.c.verdict,
+                               checks.c.value, checks.c.limit_value, checks.c.at_hz)).all()
+    cc = _columns(crow, ("sid", "seq", "name", "verdict", "value", "limit", "at_hz"))
+    where = np.array([index.get(k, -1) for k in zip(cc["sid"], cc["seq"], strict=True)], dtype=np.int64)
+    name_arr = np.array(cc["name"], dtype=object)
+    for name in sorted(set(cc["name"]), key=check_column):
+        sel = (name_arr == name) & (where >= 0)
+        at = where[sel]
+        col = check_column(name)
+        verdict = np.full(n, None, dtype=object)
+        verdict[at] = np.array(cc["verdict"], dtype=object)[sel]
+        arrays[col] = pa.array(verdict, type=s)
+        for key, suffix in (("value", "_value"), ("limit", "_limit"), ("at_hz", "_at_hz")):
+            vals = np.full(n, np.nan)
+            vals[at] = np.array(cc[key], dtype=float)[sel]
+            mask = np.ones(n, dtype=bool)
+            mask[at] = np.array([v is None for v in np.array(cc[key], dtype=object)[sel]], dtype=bool)
+            arrays[col + suffix] = pa.array(vals, type=f64, mask=mask)
+    # line metrics: one list column per figure over metric_f_hz (Arrow offsets, no per-row lists)
+    mrow = conn.execute(select(metrics.c.session_id, metrics.c.seq, metrics.c.f_hz,
+                               *(metrics.c[m] for m in METRIC_COLUMNS))).all()
+    mc = _columns(mrow, ("sid", "seq", "f_hz", *METRIC_COLUMNS))
+    idx = np.array([index.get(k, -1) for k in zip(mc["sid"], mc["seq"], strict=True)], dtype=np.int64)
+    f_all = np.array(mc["f_hz"], dtype=float)
+    keep = idx >= 0
+    order = np.lexsort((f_all[keep], idx[keep]))
+    counts = np.bincount(idx[keep], minlength=n)
+    offsets = pa.array(np.concatenate([[0], np.cumsum(counts)]).astype(np.int32))
+    empty = pa.array(counts == 0)
+
+    def as_list(values: np.ndarray, nulls: np.ndarray | None = None) -> Any:
+        flat = pa.array(values[keep][order], type=f64, mask=None if nulls is None else nulls[keep][order])
+        return pa.ListArray.from_arrays(offsets, flat, mask=empty)
+
+    arrays["metric_f_hz"] = as_list(f_all)
+    for m in METRIC_COLUMNS:
+        raw_m = np.array(mc[m], dtype=object)
+        nulls = np.array([v is None for v in raw_m], dtype=bool)
+        arrays[m] = as_list(np.where(nulls, np.nan, raw_m).astype(float), nulls)
+    return pa.table(arrays)
 
 
 def _figures_table(conn: Connection) -> Any:
@@ -101,12 +132,11 @@ def _figures_table(conn: Connection) -> Any:
         .select_from(line_figures.join(sessions, sessions.c.session_id == line_figures.c.session_id)) \
         .order_by(sessions.c.opened_at, line_figures.c.die_col, line_figures.c.die_row, line_figures.c.family,
                   line_figures.c.f_hz)
-    rows = [dict(r._mapping) for r in conn.execute(q)]
-    cols = ["session_id", "lot", "wafer"] + [c.name for c in line_figures.c if c.name != "session_id"]
+    names = ["session_id", "lot", "wafer"] + [c.name for c in line_figures.c if c.name != "session_id"]
+    cols = _columns(conn.execute(q).all(), names)
     types = {c.name: (pa.int32() if c.name.startswith("die_") else
                       pa.float64() if c.type.python_type is float else pa.string()) for c in line_figures.c}
-    schema = pa.schema([(c, types.get(c, pa.string())) for c in cols])
-    return pa.Table.from_pydict({c: [r[c] for r in rows] for c in cols}, schema=schema)
+    return pa.table({c: pa.array(cols[c], type=types.get(c, pa.string())) for c in names})
 
 
 def export_parquet(cat: Catalog, out_dir: str | Path) -> dict[str, int]:
@@ -122,8 +152,7 @@ def export_parquet(cat: Catalog, out_dir: str | Path) -> dict[str, int]:
     tmp = out.parent / f".{out.name}.tmp-{os.getpid()}"
     shutil.rmtree(tmp, ignore_errors=True)
     with cat.engine.connect() as conn:
-        rows, check_cols = _landing_rows(conn)
-        tables = {"landings": _landings_table(rows, check_cols), "line_figures": _figures_table(conn)}
+        tables = {"landings": _landings_table(conn), "line_figures": _figures_table(conn)}
     try:
         for name, table in tables.items():
             (tmp / name).mkdir(parents=True)
