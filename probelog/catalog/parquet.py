@@ -29,6 +29,7 @@ import os
 import re
 import shutil
 from pathlib import Path
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -49,7 +50,7 @@ def check_column(name: str) -> str:
     return "chk_" + re.sub(r"[^0-9a-z]+", "_", name.lower()).strip("_")
 
 
-def _columns(rows: list[Any], names: tuple[str, ...] | list[str]) -> dict[str, list[Any]]:
+def _columns(rows: Sequence[Any], names: tuple[str, ...] | list[str]) -> dict[str, list[Any]]:
     cols = list(zip(*rows, strict=True)) if rows else [()] * len(names)
     return {n: list(c) for n, c in zip(names, cols, strict=True)}
 
