@@ -204,8 +204,14 @@ def export_bundle(session_dir: Path | str, out_dir: Path | str | None = None, pr
     ``damage`` when a list is given. Raises SessionFormatError for a folder that
     is not a session, BundleError for an unusable ``out_dir`` or an unknown metric.
     """
+    from probelog.journal import writer_pid
+
     session_dir = Path(session_dir)
     journal = read_journal(session_dir)
+    pid = writer_pid(session_dir)
+    if pid is not None:  # its newest data files have no event yet
+        raise BundleError(f"{session_dir}: the session is in use (open for writing by pid {pid}); "
+                          "export it once that run has ended")
     out = Path(out_dir) if out_dir is not None else default_out_dir(session_dir)
     if out.resolve() == session_dir.resolve() or session_dir.resolve() in out.resolve().parents:
         raise BundleError(f"{out}: the bundle must not go inside the session folder")

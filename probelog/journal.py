@@ -58,6 +58,10 @@ class NotASessionError(JournalError):
     """The folder holds no journal.jsonl."""
 
 
+class SessionInUseError(JournalError):
+    """Another process has the session open for writing (its lock is held)."""
+
+
 @dataclass(frozen=True)
 class FileRef:
     """A data file: ``path`` relative to the session folder (POSIX), SHA-256 hex."""
@@ -96,11 +100,17 @@ class Problem:
 
 @dataclass(frozen=True)
 class VerifyReport:
+    """``ok`` is False when any ``problem`` was found. ``warnings`` do not make a
+    session damaged but are worth a look: data files adopted on resume whose
+    content no event vouches for (a crash before their event, or a file
+    dropped into ``data/`` by hand)."""
+
     ok: bool
     events: int
     problems: list[Problem] = field(default_factory=list)
     last_seq: int = 0
     last_hash: str = ZERO_HASH
+    warnings: list[Problem] = field(default_factory=list)
 
 
 # --------------------------------------------------------------------------- encoding
@@ -158,13 +168,17 @@ def _utc_now() -> str:
 def new_session_id(wafer_id: str, when: datetime | None = None) -> str:
     """``YYYYMMDD-HHMMSS-<wafer>`` in UTC, e.g. ``20261201-224501-QF2611-W07``."""
     when = (when or datetime.now(timezone.utc)).astimezone(timezone.utc)
-    wafer = re.sub(r"[^A-Za-z0-9._-]+", "_", wafer_id).strip("._") or "wafer"
+    # At most 100 characters of the wafer: the name must stay a legal file name
+    # with "-bundle" and a "-<n>" suffix added (255 bytes on common file systems).
+    wafer = re.sub(r"[^A-Za-z0-9._-]+", "_", wafer_id).strip("._")[:100].rstrip("._") or "wafer"
     return f"{when:%Y%m%d-%H%M%S}-{wafer}"
 
 
-def _os_reason(exc: OSError) -> str:
+def _os_reason(exc: OSError, reading: bool = False) -> str:
     if exc.errno in (errno.ENOSPC, getattr(errno, "EDQUOT", errno.ENOSPC)):
         return "the disk is full (no space left)"
+    if reading and exc.errno in (errno.EACCES, errno.EPERM):
+        return "unreadable (permission denied)"
     if exc.errno in (errno.EROFS, errno.EACCES, errno.EPERM):
         return "the folder is read-only or not writable"
     return exc.strerror or str(exc)
@@ -184,6 +198,32 @@ def _lock_fd(fd: int) -> None:
     else:
         os.lseek(fd, 0, os.SEEK_SET)
         msvcrt.locking(fd, msvcrt.LK_NBLCK, 1)
+
+
+def writer_pid(folder: str | Path) -> str | None:
+    """The pid (as text, "?" if unknown) of the process that has the session
+    open for writing, or None when nobody holds its lock. Read-only: a missing
+    lock file means no writer, and none is created."""
+    try:
+        fd = os.open(Path(folder) / LOCK_NAME, os.O_RDONLY | _OPEN_FLAGS)
+    except OSError:
+        return None
+    try:
+        try:
+            if fcntl is not None:
+                fcntl.flock(fd, fcntl.LOCK_SH | fcntl.LOCK_NB)
+                fcntl.flock(fd, fcntl.LOCK_UN)
+            else:
+                msvcrt.locking(fd, msvcrt.LK_NBRLCK, 1)
+                msvcrt.locking(fd, msvcrt.LK_UNLCK, 1)
+            return None
+        except OSError:
+            try:
+                return os.read(fd, 32).decode("ascii", "replace").strip() or "?"
+            except OSError:  # Windows refuses to read a locked range
+                return "?"
+    finally:
+        os.close(fd)
 
 
 def _fsync_dir(path: Path) -> None:
@@ -299,19 +339,33 @@ class Journal:
     # ------------------------------------------------------------ lifecycle
 
     @classmethod
-    def create(cls, root: str | Path, session_id: str) -> "Journal":
-        """Create ``root/session_id/`` with an empty journal and ``data/``."""
+    def create(cls, root: str | Path, session_id: str, unique: bool = False) -> "Journal":
+        """Create ``root/session_id/`` with an empty journal and ``data/``.
+
+        ``unique``: when that folder exists (the same wafer started twice in one
+        second, two wafer ids that clean to the same text, a case-insensitive
+        disk), take ``<session_id>-2``, ``-3``, ... instead of refusing.
+        """
         if not re.match(r"^[A-Za-z0-9][A-Za-z0-9._-]*$", session_id):
             raise JournalError(f"session id {session_id!r}: expected letters, digits, '.', '_' or '-'")
         root = Path(root)
-        folder = root / session_id
+        if root.exists() and not root.is_dir():
+            raise JournalError(f"{root}: is a file, not a folder; session folders need a folder to go into")
         try:
             root.mkdir(parents=True, exist_ok=True)
-            folder.mkdir()
-        except FileExistsError:
-            raise JournalError(f"{folder}: a session folder of that name exists already") from None
         except OSError as exc:
-            raise JournalError(f"{folder}: cannot create the session folder: {_os_reason(exc)}") from None
+            raise JournalError(f"{root}: cannot create the folder for sessions: {_os_reason(exc)}") from None
+        for n in range(1, 1000 if unique else 2):
+            folder = root / (session_id if n == 1 else f"{session_id}-{n}")
+            try:
+                folder.mkdir()  # atomic: of two processes racing for a name, one wins
+                break
+            except FileExistsError:
+                continue
+            except OSError as exc:
+                raise JournalError(f"{folder}: cannot create the session folder: {_os_reason(exc)}") from None
+        else:
+            raise JournalError(f"{folder}: a session folder of that name exists already")
         journal = cls(folder, cls._lock(folder))
         try:
             (folder / DATA_DIR).mkdir()
@@ -410,17 +464,17 @@ class Journal:
         try:
             data = self.path.read_bytes()
         except OSError as exc:
-            raise JournalError(f"{self.path}: cannot read: {_os_reason(exc)}") from None
+            raise JournalError(f"{self.path}: cannot read: {_os_reason(exc, reading=True)}") from None
         body_end = data.rfind(b"\n") + 1
         lines = data[:body_end].split(b"\n")[:-1]
         prev, offset = ZERO_HASH, 0
         events: list[Event] = []
         torn_from = body_end if body_end < len(data) else None
         for i, raw in enumerate(lines, start=1):
+            # Only bytes after the last newline are a torn line (one write() per
+            # line, newline last): a complete line that does not read is damage,
+            # wherever it is, and is never moved aside.
             rec, why = _parse(raw)
-            if rec is None and i == len(lines):
-                torn_from = offset  # a complete but unreadable last line: torn too
-                break
             if rec is None or rec["seq"] != i or rec["prev"] != prev:
                 if rec is not None:
                     why = (f"seq {rec['seq']}, expected {i}" if rec["seq"] != i
@@ -615,21 +669,27 @@ def verify(folder: str | Path, anchor: tuple[int, str] | None = None) -> VerifyR
 
     ``anchor`` (seq, sha256 of that line) is a hash kept off the machine: a chain
     alone cannot tell a rewritten or cut-off end, the anchor can.
-    Raises NotASessionError if ``folder`` holds no journal.
+    Raises NotASessionError if ``folder`` holds no journal, SessionInUseError
+    while another process has it open for writing.
     """
     root = Path(folder)
     path = root / JOURNAL_NAME
     if not path.is_file():
         raise NotASessionError(f"{root}: not a session folder (no {JOURNAL_NAME})")
+    pid = writer_pid(root)
+    if pid is not None:  # its newest files have no event yet: a walk now would list them as damage
+        raise SessionInUseError(f"{root}: the session is in use (open for writing by pid {pid}); "
+                                "verify it once that run has ended")
     try:
         data = path.read_bytes()
     except OSError as exc:
-        raise JournalError(f"{path}: cannot read: {_os_reason(exc)}") from None
+        raise JournalError(f"{path}: cannot read: {_os_reason(exc, reading=True)}") from None
     problems: list[Problem] = []
     body_end = data.rfind(b"\n") + 1
     lines = data[:body_end].split(b"\n")[:-1]
     prev, last_seq = ZERO_HASH, 0
     refs: list[tuple[int, str, str]] = []
+    adopted: list[tuple[int, str, str]] = []
     hashes: dict[int, str] = {}
     for i, raw in enumerate(lines, start=1):
         h = hashlib.sha256(raw).hexdigest()
@@ -646,21 +706,35 @@ def verify(folder: str | Path, anchor: tuple[int, str] | None = None) -> VerifyR
                                         f"line {i - 1} was edited, or lines were removed or reordered"
                                         if i > 1 else "the first event must have a prev of 64 zeros"))
             last_seq = rec["seq"]
-            refs.extend((i, p, s) for p, s in _refs(rec["payload"]))
+            if rec["type"] == "recovered":  # adopted files: present, but nothing vouches for them
+                others = {k: v for k, v in rec["payload"].items() if k != "adopted"}
+                adopted.extend((i, p, s) for p, s in _refs({"adopted": rec["payload"].get("adopted")}))
+                refs.extend((i, p, s) for p, s in _refs(others))
+            else:
+                refs.extend((i, p, s) for p, s in _refs(rec["payload"]))
         prev = h
     if body_end < len(data):
         problems.append(Problem(len(lines) + 1, JOURNAL_NAME, "a line ending in a newline",
                                 f"{len(data) - body_end} bytes without one",
                                 "torn last line (a crash while writing); opening the session moves it aside"))
     if anchor is not None:
+        # The anchor says "the journal ended here": line SEQ has this hash and
+        # there are SEQ lines. Events after it were appended since it was taken
+        # (a resume: take a new anchor) or forged.
         seq, want = anchor
         got = hashes.get(seq)
         if got != want:
             problems.append(Problem(seq, JOURNAL_NAME, f"sha256 {want}", f"sha256 {got or 'no such line'}",
                                     "the anchored line differs from the hash kept off the machine"))
-    problems.extend(_check_files(root, refs))
+        if len(lines) > seq:
+            problems.append(Problem(seq + 1, JOURNAL_NAME, f"{seq} events (the anchored count)",
+                                    f"{len(lines)} events",
+                                    f"{len(lines) - seq} event(s) after the anchored last one: appended since "
+                                    "the anchor was taken (after a resume, take a new anchor) or forged"))
+    file_problems, warnings = _check_files(root, refs, adopted)
+    problems.extend(file_problems)
     return VerifyReport(ok=not problems, events=len(lines), problems=problems,
-                        last_seq=last_seq, last_hash=prev)
+                        last_seq=last_seq, last_hash=prev, warnings=warnings)
 
 
 def _snippet(raw: bytes) -> str:
@@ -668,10 +742,22 @@ def _snippet(raw: bytes) -> str:
     return repr(text + ("..." if len(raw) > 60 else ""))
 
 
-def _check_files(root: Path, refs: list[tuple[int, str, str]]) -> list[Problem]:
+def _check_files(root: Path, refs: list[tuple[int, str, str]],
+                 adopted: list[tuple[int, str, str]] = ()) -> tuple[list[Problem], list[Problem]]:
+    """(problems, warnings) of the data files: every reference checked against
+    the file on disk; an adopted file (listed by a ``recovered`` event) is
+    checked too, and is a warning unless its hash is one an event recorded."""
     problems: list[Problem] = []
+    warnings: list[Problem] = []
     digests: dict[str, str | None] = {}
-    for line, rel, want in refs:
+    vouched = {want for _, _, want in refs}
+    for line, rel, want in adopted:
+        if want not in vouched:
+            warnings.append(Problem(line, rel, "a file whose content an event recorded",
+                                    f"adopted on resume, sha256 {want[:12]}... recorded by no event",
+                                    "no event vouches for this file (a crash before its event, "
+                                    "or a file dropped into data/ by hand)"))
+    for line, rel, want in [*refs, *adopted]:  # an adopted file must still hash as recorded
         safe = _safe_rel(rel)
         if safe is None:
             problems.append(Problem(line, rel, "a path inside the session folder", repr(rel), "unsafe file path"))
@@ -683,7 +769,7 @@ def _check_files(root: Path, refs: list[tuple[int, str, str]]) -> list[Problem]:
             except FileNotFoundError:
                 digests[key] = None
             except OSError as exc:
-                digests[key] = f"unreadable ({_os_reason(exc)})"
+                digests[key] = f"unreadable ({_os_reason(exc, reading=True)})"
         got = digests[key]
         if got is None:
             problems.append(Problem(line, key, f"sha256 {want}", "missing", "data file named by the event is missing"))
@@ -698,4 +784,4 @@ def _check_files(root: Path, refs: list[tuple[int, str, str]]) -> list[Problem]:
         if rel not in digests:
             problems.append(Problem(None, rel, "a file named by an event", "no event names it",
                                     "unreferenced data file (a crash before its event); opening the session adopts it"))
-    return problems
+    return problems, warnings

@@ -23,9 +23,10 @@ from dataclasses import replace as _replace
 from importlib import resources
 from pathlib import Path
 from types import MappingProxyType
-from typing import Any, Mapping
+from typing import Any, Iterable, Iterator, Mapping
 
 from probelog.bench import PRECHECK_IFBW_HZ, PRECHECK_POINTS, Die, SweepSettings
+from probelog.names import MAX_ID_CHARS, name_problem
 
 KINDS = ("open", "short", "load", "thru", "line", "open-stub", "short-stub", "device")
 ORDERS = ("serpentine", "rows", "listed")
@@ -150,6 +151,8 @@ class CalibrationPlan:
             return tomllib.loads(text)
         except tomllib.TOMLDecodeError as exc:
             raise PlanError(f"{where}: the kit file {self.kit_path} is not valid TOML: {exc}") from None
+        except RecursionError:
+            raise PlanError(f"{where}: the kit file {self.kit_path}: {_too_deep(text)}") from None
 
 
 @dataclass(frozen=True)
@@ -226,25 +229,43 @@ class Plan:
         return tuple(self.site(n) for n in self.sequence.sites)
 
     def dies_in_order(self) -> list[Die]:
-        """Dies to probe as (col, row) in visiting order."""
+        """Dies to probe as (col, row) in visiting order (a list; see iter_dies)."""
+        return list(self.iter_dies())
+
+    def iter_dies(self) -> Iterator[Die]:
+        """Dies to probe as (col, row) in visiting order, one at a time: a
+        1000 x 1000 ``dies = "all"`` grid never becomes a list of a million dies
+        (the skip set and one row of columns are all that is held)."""
         w = self.wafer
+        if w.dies is not None and w.order == "listed":
+            yield from w.dies
+            return
         if w.dies is None:
             skip = set(w.skip)
-            dies = [(c, r) for r in range(w.rows) for c in range(w.cols) if (c, r) not in skip]
+            rows: Iterable[tuple[int, list[int]]] = (
+                (r, [c for c in range(w.cols) if (c, r) not in skip]) for r in range(w.rows))
         else:
-            dies = list(w.dies)
-        if w.order == "listed":
-            return dies
-        by_row: dict[int, list[int]] = {}
-        for c, r in dies:
-            by_row.setdefault(r, []).append(c)
-        out: list[Die] = []
+            by_row: dict[int, list[int]] = {}
+            for c, r in w.dies:
+                by_row.setdefault(r, []).append(c)
+            rows = ((r, sorted(by_row[r])) for r in sorted(by_row))
         # Serpentine flips direction on every row that has dies, so the stage
         # never travels back across the wafer between rows.
-        for i, r in enumerate(sorted(by_row)):
-            cols = sorted(by_row[r], reverse=(w.order == "serpentine" and i % 2 == 1))
-            out.extend((c, r) for c in cols)
-        return out
+        i = 0
+        for r, cols in rows:
+            if not cols:
+                continue
+            if w.order == "serpentine" and i % 2 == 1:
+                cols = cols[::-1]
+            yield from ((c, r) for c in cols)
+            i += 1
+
+    def die_count(self) -> int:
+        """How many dies :meth:`iter_dies` yields, without walking them."""
+        w = self.wafer
+        if w.dies is not None:
+            return len(w.dies)
+        return w.cols * w.rows - len(set(w.skip))
 
 
 # --------------------------------------------------------------------------- loading
@@ -287,8 +308,22 @@ def load_plan_text(text: str, source: str = "<plan>", base_dir: Path | None = No
         else:
             msg = f"not valid TOML: {msg}"
         raise PlanError(f"{source}, {msg}" if m else f"{source}: {msg}") from None
+    except RecursionError:  # tomllib parses nested arrays and tables recursively
+        raise PlanError(f"{source}: {_too_deep(text)}") from None
     ctx = _Ctx(source, text)
     return _build(ctx, raw, text, base_dir or Path.cwd())
+
+
+def _too_deep(text: str) -> str:
+    """The message for TOML nested past Python's recursion limit, naming the
+    first line where the nesting passes 100 levels (no plan needs 10)."""
+    depth = 0
+    for n, line in enumerate(text.splitlines(), start=1):
+        for ch in re.sub(r'"[^"]*"|\'[^\']*\'', "", line.split("#", 1)[0]):
+            depth += (ch in "[{") - (ch in "]}")
+            if depth > 100:
+                return f"line {n}: arrays or tables nested more than 100 levels deep; expected a plain plan"
+    return "arrays or tables nested too deep; expected a plain plan"
 
 
 # --------------------------------------------------------------------------- validation
@@ -546,7 +581,7 @@ def _wafer(ctx: _Ctx, raw: dict) -> Wafer:
         dies = None
         if order == "listed":
             raise ctx.error("wafer.order", 'order "listed" needs an explicit list in wafer.dies')
-        if len(skip) >= cols * rows:
+        if len(set(skip)) >= cols * rows:
             raise ctx.error("wafer.skip", "every die of the grid is skipped; nothing to probe")
     elif isinstance(dies_raw, list) and dies_raw:
         dies = tuple(_die(ctx, d, f"wafer.dies[{i + 1}]", cols, rows) for i, d in enumerate(dies_raw))
@@ -560,8 +595,11 @@ def _wafer(ctx: _Ctx, raw: dict) -> Wafer:
     else:
         raise ctx.error("wafer.dies", f'expected "all" or a non-empty list of dies [[col, row], ...], '
                                       f"found {_describe(dies_raw)}")
+    wafer_id = _str(ctx, t, "id", "wafer.id")
+    if len(wafer_id) > MAX_ID_CHARS:
+        raise ctx.error("wafer.id", f"{name_problem(wafer_id)} (it becomes part of the session folder name)")
     return Wafer(
-        id=_str(ctx, t, "id", "wafer.id"),
+        id=wafer_id,
         lot=_str(ctx, t, "lot", "wafer.lot"),
         chip=_str(ctx, t, "chip", "wafer.chip"),
         cols=cols,
@@ -588,6 +626,8 @@ def _sites(ctx: _Ctx, raw: dict, wafer: Wafer) -> tuple[Site, ...]:
         if not _NAME_RE.match(name):
             raise ctx.error(f"{p}.name", f"{name!r} is not a usable site name; expected letters, digits, "
                                          "'.', '_' or '-' (it becomes a folder name)")
+        if why := name_problem(name):
+            raise ctx.error(f"{p}.name", f"{name!r} is not a usable site name: {why} (it becomes a folder name)")
         if name in names:
             raise ctx.error(f"{p}.name", f"duplicate site name {name!r} (first defined in {names[name]})")
         names[name] = p

@@ -249,14 +249,22 @@ def test_torn_last_line_is_moved_aside_and_recorded(tmp_path):
     assert verify(folder).ok
 
 
-def test_unreadable_complete_last_line_is_torn_too(tmp_path):
+def test_unreadable_complete_last_line_is_damage_not_torn(tmp_path):
+    """A line is written with one write() ending in its newline: a crash leaves
+    bytes without the newline, never a complete garbled line (issue 13, item 6)."""
     folder = _session(tmp_path, n=3)
     path = folder / JOURNAL_NAME
-    path.write_bytes(path.read_bytes() + b"\x00\xffgarbage\n" + b"more")
+    damaged = path.read_bytes() + b"\x00\xffgarbage\n" + b"more"
+    path.write_bytes(damaged)
+    with pytest.raises(JournalError, match=r"line 4: not valid JSON.*damaged"):
+        Journal.open(folder)
+    assert path.read_bytes() == damaged and not (folder / "journal.torn-1").exists()  # nothing moved
+    probs = _problems(folder)
+    assert [(p.line, p.message.split(" (")[0]) for p in probs] == [(4, "not valid JSON"), (5, "torn last line")]
+    # the same garbage without its newline is the torn tail, and only that is moved aside
+    path.write_bytes(damaged[: damaged.index(b"\x00")] + b"\x00\xffgarbage")
     with Journal.open(folder) as j:
-        assert j.recovered.payload["torn_bytes"] == len(b"\x00\xffgarbage\nmore")
-        assert j.last.seq == 4
-    assert (folder / "journal.torn-1").read_bytes() == b"\x00\xffgarbage\nmore"
+        assert j.recovered.payload["torn_bytes"] == len(b"\x00\xffgarbage") and j.last.seq == 4
     assert verify(folder).ok
 
 

@@ -61,7 +61,8 @@ class Engine(Policy):
 
         validate(plan)
         try:
-            journal = Journal.create(Path(sessions_root), session_id or new_session_id(plan.wafer.id))
+            journal = Journal.create(Path(sessions_root), session_id or new_session_id(plan.wafer.id),
+                                     unique=session_id is None)  # same wafer twice in a second: -2
         except JournalError as exc:
             raise EngineError(str(exc)) from None
         try:

@@ -6,7 +6,8 @@ import argparse
 import re
 import sys
 
-HELP = "check a session folder: hash chain, every data file, exit 0 intact / 1 damaged"
+HELP = ("check a session folder: hash chain, every data file; "
+        "exit 0 intact, 1 damaged or unreadable, 2 not a session, 3 in use by a running session")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -14,14 +15,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--anchor",
         metavar="SEQ:SHA256",
-        help="hash of one journal line kept off the machine (as printed by an earlier verify); "
-             "catches a rewritten or cut-off end, which a chain alone cannot",
+        help="the last line's seq and hash kept off the machine (as printed by an earlier verify); "
+             "catches a rewritten or cut-off end and events appended after it, which a chain alone cannot",
     )
 
 
 def run(args: argparse.Namespace) -> int:
     from probelog.tui.cli import UsageError
-    from probelog.journal import JournalError, NotASessionError, verify
+    from probelog.journal import JournalError, NotASessionError, SessionInUseError, verify
 
     anchor = None
     if args.anchor is not None:
@@ -34,13 +35,19 @@ def run(args: argparse.Namespace) -> int:
     except NotASessionError as exc:
         print(f"probelog verify: {exc}", file=sys.stderr)
         return 2
+    except SessionInUseError as exc:
+        print(f"probelog verify: {exc}", file=sys.stderr)
+        return 3
     except JournalError as exc:
         print(f"probelog verify: {exc}", file=sys.stderr)
         return 1
+    for w in report.warnings:
+        print(f"  warning: line {w.line}, {w.file}: {w.message}; found {w.found}")
     if report.ok:
-        print(f"{args.session}: intact, {report.events} events, every data file matches")
-        print(f"last event {report.last_seq} sha256 {report.last_hash} "
-              "(keep this line elsewhere and pass it as --anchor to detect later rewrites)")
+        note = f", {len(report.warnings)} warning(s) above" if report.warnings else ""
+        print(f"{args.session}: intact, {report.events} events, every data file matches{note}")
+        print(f"anchor {report.last_seq}:{report.last_hash} (keep this line elsewhere and pass it as "
+              "--anchor to detect a later rewrite, cut or appended event)")
         return 0
     print(f"{args.session}: damaged, {len(report.problems)} problem(s) in {report.events} events")
     for p in report.problems:
