@@ -70,11 +70,15 @@ behind (file written, event lost, adopted on reopen) is not reused: the redone s
 writes `<name>-r2`, `-r3`, ...; events always name the file they mean.
 
 Writer rules (probelog/journal.py): one writer per session (an exclusive `flock` on
-`<session>/.lock`); data files are never overwritten. On reopen, a last line with
-no newline, or a last line that is not a readable event, is the torn tail; damage
-anywhere else refuses to open (run `probelog verify`). A hash chain cannot see an
-edit of its last line or a cut at a line boundary: `probelog verify` prints the
-last line's seq and hash; keep it elsewhere and pass it back as `--anchor SEQ:SHA256`.
+`<session>/.lock`); data files are never overwritten. On reopen, bytes after the
+last newline are the torn tail (moved aside); a complete line that is not a
+readable event is damage wherever it is and refuses to open (run `probelog verify`).
+A hash chain cannot see an edit of its last line, a cut at a line boundary or an
+event appended with a correct `prev`: `probelog verify` prints `anchor SEQ:SHA256`
+(the event count and the last line's hash); keep it elsewhere and pass it back as
+`--anchor SEQ:SHA256`. Files adopted in a `recovered` event are verify warnings
+unless another event recorded the same SHA-256. What each level protects
+against: docs/integrity.md.
 """
 
 
