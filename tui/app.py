@@ -26,6 +26,7 @@ from textual.binding import Binding
 from textual.screen import ModalScreen, Screen
 from textual.worker import Worker, WorkerState
 
+from probelog.engine.protocol import EngineProtocol
 from probelog.tui.messages import EngineNotified, EngineReady, JournalGrew, SessionClosed
 from probelog.tui.screens.base import BenchScreen
 from probelog.tui.screens.calibrate import Calibrate
@@ -37,7 +38,7 @@ from probelog.tui.screens.probe import Probe
 from probelog.tui.widgets.logbook import JournalTail
 from probelog.tui.widgets.where_bar import kind_name
 
-EngineFactory = Callable[..., Any]
+EngineFactory = Callable[..., EngineProtocol]
 
 SCREEN_FOR_PHASE = {"CALIBRATING": Calibrate, "VERIFYING": Calibrate,
                     "PROBING": Probe, "DECIDING": Probe, "DONE": Probe}
@@ -59,7 +60,7 @@ class ProbelogApp(App[int]):
         self.engine_factory = engine_factory
         self.show_cautions = show_cautions
         self.intake = intake
-        self.engine: Any = None
+        self.engine: EngineProtocol | None = None
         self.journal_events: list[dict] = []
         self._tail: JournalTail | None = None
         self._session_closing = False

@@ -15,6 +15,7 @@ from textual.reactive import var
 from textual.screen import Screen
 from textual.worker import Worker, WorkerState
 
+from probelog.engine.protocol import EngineProtocol
 from probelog.tui.messages import CalibrationSolved, ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from probelog.tui.screens.dialogs import AskReason
 from probelog.tui.widgets.logbook import Logbook
@@ -56,8 +57,9 @@ class BenchScreen(Screen):
     busy: var[bool] = var(False)
 
     @property
-    def engine(self) -> Any:
-        return self.app.engine
+    def engine(self) -> EngineProtocol:
+        engine: EngineProtocol = self.app.engine  # type: ignore[attr-defined]  # set before any bench screen opens
+        return engine
 
     # ---------------------------------------------------------------- workers
 
@@ -84,7 +86,7 @@ class BenchScreen(Screen):
         """Journal one operator decision through the engine."""
         engine = self.engine
         calls = {
-            "accept": lambda: engine.accept(),
+            "accept": lambda: engine.accept(reason),
             "skip": lambda: engine.skip(reason),
             "note": lambda: engine.note(reason),
             "recalibrate": lambda: engine.recalibrate(reason),
