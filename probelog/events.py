@@ -22,6 +22,7 @@ Units: frequencies in Hz, power in dBm; ``die`` is ``(column, row)``.
 
 from __future__ import annotations
 
+import hashlib
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any, ClassVar, Union
@@ -384,12 +385,12 @@ class Decoder:
         return Event(seq, ts, self.payload(type_, payload, seq), hash_)
 
     def line(self, raw: bytes) -> Event:
-        """One journal line (bytes, without its newline)."""
+        """One journal line (bytes, without its newline); ``hash`` is its SHA-256."""
         try:
             rec = _LINE.decode(raw)
         except msgspec.DecodeError as exc:
             raise EventError(f"{self.source}: not a journal line: {exc}") from None
-        return self.event(rec.seq, rec.ts, rec.type, rec.payload)
+        return self.event(rec.seq, rec.ts, rec.type, rec.payload, hashlib.sha256(raw).hexdigest())
 
 
 class _Line(msgspec.Struct, frozen=True):
