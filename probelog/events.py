@@ -307,7 +307,7 @@ class Recovered(_Record, frozen=True):
 class SessionClosed(_Record, frozen=True):
     TYPE: ClassVar[str] = "session-closed"
     completed: bool = False
-    summary: dict[str, Any] = {}
+    summary: dict[str, Any] | str | None = None  # the engine writes a dict of counts
 
 
 @dataclass(frozen=True)
@@ -342,6 +342,7 @@ class Event:
     ts: str
     data: AnyPayload
     hash: str = ""
+    prev: str = ""  # as written in the line (read from bytes only)
 
     @property
     def type(self) -> str:
@@ -381,8 +382,8 @@ class Decoder:
             raise EventError(f"{where}: {type_!r} event: {exc}") from None
         return data
 
-    def event(self, seq: int, ts: str, type_: str, payload: Mapping[str, Any], hash_: str = "") -> Event:
-        return Event(seq, ts, self.payload(type_, payload, seq), hash_)
+    def event(self, seq: int, ts: str, type_: str, payload: Mapping[str, Any], hash_: str = "", prev: str = "") -> Event:
+        return Event(seq, ts, self.payload(type_, payload, seq), hash_, prev)
 
     def line(self, raw: bytes) -> Event:
         """One journal line (bytes, without its newline); ``hash`` is its SHA-256."""
@@ -390,14 +391,14 @@ class Decoder:
             rec = _LINE.decode(raw)
         except msgspec.DecodeError as exc:
             raise EventError(f"{self.source}: not a journal line: {exc}") from None
-        return self.event(rec.seq, rec.ts, rec.type, rec.payload, hashlib.sha256(raw).hexdigest())
+        return self.event(rec.seq, rec.ts, rec.type, rec.payload, hashlib.sha256(raw).hexdigest(), rec.prev)
 
 
 class _Line(msgspec.Struct, frozen=True):
     seq: int
-    ts: str
     type: str
-    payload: dict[str, Any]
+    ts: str = ""
+    payload: dict[str, Any] = {}
     prev: str = ""
 
 
@@ -425,6 +426,17 @@ def read_session(folder: Any) -> list[Event]:
 
     path = Path(folder) / JOURNAL_NAME
     return decode_lines(path.read_bytes(), str(path))
+
+
+def file_refs(data: Any) -> list[tuple[str, FileRef]]:
+    """(field name, FileRef) for every file an event names, in field order."""
+    out: list[tuple[str, FileRef]] = []
+    for name in getattr(data, "__struct_fields__", ()):
+        value = getattr(data, name)
+        for item in value if isinstance(value, list) else (value,):
+            if isinstance(item, FileRef):
+                out.append((name, item))
+    return out
 
 
 def checks_of(data: Any) -> list[CheckResult]:

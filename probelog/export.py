@@ -25,8 +25,8 @@ from typing import Any, Callable
 
 import numpy as np
 
+from probelog import events as ev
 from probelog.pad_free_bundle import add_pad_free_columns
-
 from probelog.manifest import (
     JOURNAL_NAME,
     SessionFormatError,
@@ -73,12 +73,9 @@ def _copy_tree(src: Path, dst: Path, advance: Callable[[], None]) -> dict[str, s
 def _referenced_files(index: SessionIndex) -> list[tuple[str, str, str]]:
     """(path, journaled sha256, where) for every file reference in the events."""
     refs = []
-    events = index.landings + index.cal_events + index.drifts
-    for ev in events:
-        for key, val in ev["payload"].items():
-            for ref in val if isinstance(val, list) else [val]:
-                if isinstance(ref, dict) and "path" in ref and "sha256" in ref:
-                    refs.append((ref["path"], ref["sha256"], f"seq {ev['seq']} ({ev['type']}) {key}"))
+    for e in index.landings + index.cal_events + index.drifts:
+        for key, ref in ev.file_refs(e.data):
+            refs.append((ref.path, ref.sha256, f"seq {e.seq} ({e.type}) {key}"))
     return list(dict.fromkeys(refs))
 
 
@@ -160,16 +157,14 @@ def compute_missing_metrics(index: SessionIndex, networks: dict[int, Any]) -> in
 
 def _load_cal_networks(index: SessionIndex, root: Path) -> dict[str, Any]:
     out = {}
-    for ev in index.cal_events:
-        if ev["type"] != "cal-verification":
+    for e in index.cal_events:
+        if not isinstance(e.data, ev.CalVerification):
             continue
-        for key in ("corrected", "raw"):
-            ref = ev["payload"].get(key)
-            path = ref.get("path") if isinstance(ref, dict) else ref
-            if path and (root / path).is_file():
-                ntwk = _read_network(root / path)
+        for ref in (e.data.corrected, e.data.raw):
+            if ref is not None and (root / ref.path).is_file():
+                ntwk = _read_network(root / ref.path)
                 if ntwk is not None:
-                    out[path] = ntwk
+                    out[ref.path] = ntwk
     return out
 
 

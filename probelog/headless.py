@@ -43,6 +43,7 @@ class Summary:
     instrument_errors: int
     recalibrations: int
     session_dir: Path
+    accepted_despite_fail: int = 0  # FAIL landings kept with a reason (never by this runner's policy)
 
     @property
     def exit_code(self) -> int:
@@ -208,10 +209,11 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
     completed = engine.phase is Phase.DONE
     summary = Summary(completed, summary_d["accepted"], summary_d["skipped"], summary_d["failed"],
                       counts["landings"], counts["relands"], counts["errors"], counts["recals"],
-                      engine.session_dir)
+                      engine.session_dir, summary_d["accepted_despite_fail"])
     if close:
         engine.close(completed)
-    printer.line(f"done: {summary.accepted} accepted, {summary.failed} failed, {summary.skipped} skipped; "
+    despite = f", {summary.accepted_despite_fail} accepted despite FAIL" if summary.accepted_despite_fail else ""
+    printer.line(f"done: {summary.accepted} accepted{despite}, {summary.failed} failed, {summary.skipped} skipped; "
                  f"{summary.relands} re-landings, {summary.instrument_errors} instrument errors, "
                  f"{summary.recalibrations} recalibrations")
     printer.line(str(engine.session_dir))

@@ -1,24 +1,28 @@
 """Read a session journal and turn it into the analyst manifest.
 
-The journal format is the contract in docs/journal-events.md; this module reads
-the JSONL directly (no dependency on the engine) so a bundle can be built from a
-session written by any version of the engine that keeps the contract.
+The journal format is the contract in docs/journal-events.md; lines are decoded
+by probelog.events and folded into a probelog.state.SessionState (no dependency
+on the engine), so a bundle can be built from a session written by any version
+that keeps the contract.
 
-One manifest row per kept sweep: a ``landing`` event whose (die, site, landing)
-got an ``accept`` decision. Landings on the same die/site that were not kept are
-counted as retries of the kept one.
+One manifest row per kept sweep: the landing a site's final decision kept, an
+``accept`` or an ``accept-despite-fail`` (column ``decision``, with the operator's
+reason). Landings on the same die/site that were not kept are counted as
+retries of the kept one.
 """
 
 from __future__ import annotations
 
 import csv
 import hashlib
-import json
 import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable
+
+from probelog import events as ev
+from probelog import state as st
 
 JOURNAL_NAME = "journal.jsonl"
 ZERO_HASH = "0" * 64
@@ -30,7 +34,7 @@ class SessionFormatError(ValueError):
 
 @dataclass
 class Journal:
-    """The events of one session journal and what the reader noticed on the way.
+    """The events of one session journal, their state, and what the reader noticed.
 
     ``lines`` are the raw bytes of each event line (without newline), kept for
     the hash chain; ``torn_tail`` is True when an unterminated, unparsable last
@@ -38,9 +42,10 @@ class Journal:
     """
 
     path: Path
-    events: list[dict]
+    events: list[ev.Event]
     lines: list[bytes]
     torn_tail: bool = False
+    state: st.SessionState = field(default_factory=st.SessionState)
 
 
 @dataclass
@@ -59,7 +64,7 @@ class ChainStatus:
 
 
 def read_journal(session_dir: Path) -> Journal:
-    """Read ``journal.jsonl`` of a session folder.
+    """Read and decode ``journal.jsonl`` of a session folder.
 
     Raises SessionFormatError naming the file and line for anything that is not
     an event; an unparsable *last* line without a newline is treated as torn.
@@ -74,45 +79,44 @@ def read_journal(session_dir: Path) -> Journal:
     ends_with_newline = blob.endswith(b"\n")
     if ends_with_newline:
         raw_lines = raw_lines[:-1]
-    events: list[dict] = []
+    decoder = ev.Decoder(str(path))
+    events: list[ev.Event] = []
     lines: list[bytes] = []
     torn = False
     for i, line in enumerate(raw_lines, start=1):
-        last = i == len(raw_lines)
         try:
-            ev = json.loads(line)
-        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            if last and not ends_with_newline:
+            events.append(decoder.line(line))
+        except ev.EventError as exc:
+            if i == len(raw_lines) and not ends_with_newline:
                 torn = True
                 break
-            raise SessionFormatError(f"{path}:{i}: not a JSON event ({getattr(exc, 'msg', exc)})") from None
-        if not isinstance(ev, dict):
-            raise SessionFormatError(f"{path}:{i}: event is not a JSON object")
-        for key in ("seq", "ts", "type", "payload", "prev"):
-            if key not in ev:
-                raise SessionFormatError(f"{path}:{i}: event has no '{key}' field")
-        if not isinstance(ev["payload"], dict):
-            raise SessionFormatError(f"{path}:{i}: 'payload' is not an object")
-        events.append(ev)
+            why = str(exc).split(": ", 1)[-1] if "not a journal line" not in str(exc) else "not a JSON event"
+            raise SessionFormatError(f"{path}:{i}: {why}") from None
         lines.append(line)
     if not events:
         raise SessionFormatError(f"{path}: journal has no events")
-    if events[0]["type"] != "session-opened":
-        raise SessionFormatError(f"{path}:1: first event is '{events[0]['type']}', expected 'session-opened'")
-    return Journal(path=path, events=events, lines=lines, torn_tail=torn)
+    if not isinstance(events[0].data, ev.SessionOpened):
+        raise SessionFormatError(f"{path}:1: first event is '{events[0].type}', expected 'session-opened'")
+    return Journal(path=path, events=events, lines=lines, torn_tail=torn, state=st.fold(events))
 
 
 def walk_chain(lines: list[bytes]) -> ChainStatus:
     """Re-walk the hash chain: each event's ``prev`` is the SHA-256 hex of the
-    previous line's bytes (64 zeros for the first), and ``seq`` counts 1, 2, ..."""
+    previous line's bytes (64 zeros for the first), and ``seq`` counts 1, 2, ...
+    (lines decoded by probelog.events)."""
     prev = ZERO_HASH
     problem = ""
     intact = 0
+    decoder = ev.Decoder()
     for i, line in enumerate(lines, start=1):
-        ev = json.loads(line)
-        if not problem and ev.get("seq") != i:
-            problem = f"line {i}: seq is {ev.get('seq')}, expected {i}"
-        elif not problem and ev.get("prev") != prev:
+        try:
+            e = decoder.line(line)
+            seq, line_prev = e.seq, e.prev
+        except ev.EventError:
+            seq, line_prev = -1, ""
+        if not problem and seq != i:
+            problem = f"line {i}: seq is {seq}, expected {i}"
+        elif not problem and line_prev != prev:
             problem = f"line {i}: 'prev' is not the SHA-256 of line {i - 1} (line {i - 1} edited, or lines removed)"
         if not problem:
             intact = i
@@ -248,7 +252,7 @@ BASE_COLUMNS = (
     "seq", "time", "die_col", "die_row", "site", "kind", "line_type", "metal",
     "width_um", "gap_um", "length_um", "w_over_g", "landing", "retries",
     "cal_id", "raw_file", "raw_sha256", "corrected_file", "corrected_sha256",
-    "files_ok", "verdict", "notes",
+    "files_ok", "verdict", "decision", "decision_reason", "notes",
 )
 
 COLUMN_HELP = {
@@ -273,6 +277,8 @@ COLUMN_HELP = {
     "corrected_sha256": "SHA-256 of corrected_file as journaled",
     "files_ok": "1 when every file of the row was found and its SHA-256 matched, else 0",
     "verdict": "overall verdict of the landing's checks: pass, warn or fail",
+    "decision": "accept, or accept-despite-fail (a FAIL landing the operator kept, with a reason)",
+    "decision_reason": "the operator's reason for the decision (always given for accept-despite-fail)",
     "notes": "operator notes on this die/site, joined with ' | '",
 }
 
@@ -281,30 +287,24 @@ def check_column(check_name: str) -> str:
     return "chk_" + re.sub(r"[^0-9a-z]+", "_", check_name.lower()).strip("_")
 
 
-def _file_ref(ref: Any) -> tuple[str, str]:
-    if isinstance(ref, dict):
-        return str(ref.get("path") or ""), str(ref.get("sha256") or "")
-    if isinstance(ref, str):
-        return ref, ""
-    return "", ""
-
-
 @dataclass
 class SessionIndex:
-    """What a bundle needs from the journal, gathered in one pass."""
+    """What a bundle needs from the journal: the folded state, the typed events by
+    kind, and the manifest rows (one per kept sweep)."""
 
-    opened: dict
+    opened: ev.SessionOpened
     sites: dict[str, dict]
     rows: list[dict]
-    landings: list[dict]
-    decisions: list[dict]
-    notes: list[dict]
-    cal_events: list[dict]
-    drifts: list[dict]
-    errors: list[dict]
-    closed: dict | None
+    landings: list[ev.Event]
+    decisions: list[ev.Event]
+    notes: list[ev.Event]
+    cal_events: list[ev.Event]
+    drifts: list[ev.Event]
+    errors: list[ev.Event]
+    closed: ev.SessionClosed | None
     check_units: dict[str, str] = field(default_factory=dict)
     metric_columns: list[str] = field(default_factory=list)
+    state: st.SessionState = field(default_factory=st.SessionState)
 
     @property
     def columns(self) -> list[str]:
@@ -315,88 +315,72 @@ class SessionIndex:
         return list(BASE_COLUMNS) + checks + self.metric_columns
 
 
+_CAL_TYPES = (ev.CalStandard, ev.CalComputed, ev.CalVerification, ev.CalAgreement, ev.CalAccepted, ev.CalRejected)
+_ERROR_TYPES = (ev.InstrumentError, ev.Recovered, ev.RecalRequested)
+
+
 def index_session(journal: Journal) -> SessionIndex:
-    """One pass over the events: kept sweeps become manifest rows (without the
-    ``files_ok`` and computed-metric fields, which need the files)."""
-    opened = journal.events[0]["payload"]
-    sites = plan_sites(opened.get("plan_text"))
-    landings, decisions, notes, cal_events, drifts, errors = [], [], [], [], [], []
-    closed = None
-    for ev in journal.events:
-        t, p = ev["type"], ev["payload"]
-        if t == "landing":
-            landings.append(ev)
-        elif t == "decision":
-            decisions.append(ev)
-        elif t == "note":
-            notes.append(ev)
-        elif t.startswith("cal-"):
-            cal_events.append(ev)
-        elif t == "drift":
-            drifts.append(ev)
-        elif t in ("instrument-error", "recovered", "recal-requested"):
-            errors.append(ev)
-        elif t == "session-closed":
-            closed = p
-
-    def key(p: dict) -> tuple:
-        die = p.get("die") or [None, None]
-        return (tuple(die), p.get("site"), p.get("landing"))
-
-    accepted = {key(ev["payload"]) for ev in decisions if ev["payload"].get("action") == "accept"}
-    per_site: dict[tuple, list[dict]] = {}
-    for ev in landings:
-        p = ev["payload"]
-        per_site.setdefault(key(p)[:2], []).append(ev)
-    notes_by_site: dict[tuple, list[str]] = {}
-    for ev in notes:
-        p = ev["payload"]
-        if p.get("site") is not None:
-            notes_by_site.setdefault((tuple(p.get("die") or [None, None]), p["site"]), []).append(str(p.get("text", "")))
-
-    # latest landing event per (die, site, landing) that was accepted
-    kept: dict[tuple, dict] = {}
-    for ev in landings:
-        k = key(ev["payload"])
-        if k in accepted:
-            kept[k] = ev
+    """Kept sweeps (from the state: each site's final accept, despite FAIL or
+    not) become manifest rows, without the ``files_ok`` and computed-metric
+    fields, which need the files."""
+    state = journal.state
+    opened = state.opened
+    if opened is None:
+        raise SessionFormatError(f"{journal.path}: no session-opened event")
+    sites = plan_sites(opened.plan_text)
+    by_kind: dict[str, list[ev.Event]] = {k: [] for k in ("landing", "decision", "note", "cal", "drift", "error")}
+    for e in journal.events:
+        d = e.data
+        kind = ("landing" if isinstance(d, ev.Landing) else "decision" if isinstance(d, (ev.Decision, ev.DieSkipped))
+                else "note" if isinstance(d, ev.Note) else "cal" if isinstance(d, _CAL_TYPES)
+                else "drift" if isinstance(d, ev.Drift) else "error" if isinstance(d, _ERROR_TYPES) else "")
+        if kind:
+            by_kind[kind].append(e)
+    notes_by_site: dict[tuple[Any, str], list[str]] = {}
+    for n in state.notes:
+        if n.site is not None:
+            notes_by_site.setdefault((n.die, n.site), []).append(n.text)
     check_units: dict[str, str] = {}
     metric_cols: dict[str, None] = {}
-    rows = []
-    for k, ev in sorted(kept.items(), key=lambda kv: kv[1]["seq"]):
-        p = ev["payload"]
-        die, site, landing = k
-        geo = sites.get(site, {})
-        raw, raw_sha = _file_ref(p.get("raw"))
-        cor, cor_sha = _file_ref(p.get("corrected"))
-        width, gap = geo.get("width_um"), geo.get("gap_um")
-        row: dict[str, Any] = {
-            "seq": ev["seq"], "time": ev["ts"], "die_col": die[0], "die_row": die[1],
-            "site": site, "kind": p.get("kind") or geo.get("kind", ""),
-            "line_type": geo.get("line_type", ""), "metal": geo.get("metal", ""),
-            "width_um": width, "gap_um": gap, "length_um": geo.get("length_um"),
-            "w_over_g": (width / gap) if width and gap else None,
-            "landing": landing,
-            "retries": sum(1 for o in per_site.get((die, site), []) if key(o["payload"]) != k),
-            "cal_id": p.get("cal_id") or "", "raw_file": raw, "raw_sha256": raw_sha,
-            "corrected_file": cor, "corrected_sha256": cor_sha, "files_ok": None,
-            "verdict": p.get("verdict", ""),
-            "notes": " | ".join(notes_by_site.get((die, site), [])),
-        }
-        for c in p.get("checks") or []:
-            name = str(c.get("name", "check"))
-            check_units.setdefault(name, str(c.get("unit") or ""))
-            col = check_column(name)
-            row[col] = c.get("verdict")
-            row[f"{col}_value"] = c.get("value")
-            row[f"{col}_limit"] = c.get("limit")
-            row[f"{col}_at_hz"] = c.get("at_hz")
-        flat = flatten_metrics(p.get("metrics"))
-        row.update(flat)
-        metric_cols.update(dict.fromkeys(flat))
-        rows.append(row)
-    return SessionIndex(opened, sites, rows, landings, decisions, notes, cal_events, drifts,
-                        errors, closed, check_units, sorted(metric_cols, key=metric_sort_key))
+    kept_rows: list[tuple[st.LandingRec, dict[str, Any]]] = []
+    for die, by_site in state.sites.items():
+        for site, rec in by_site.items():
+            kept = rec.accepted_landing
+            if kept is None or rec.decision is None:
+                continue
+            geo = sites.get(site, {})
+            width, gap = geo.get("width_um"), geo.get("gap_um")
+            row: dict[str, Any] = {
+                "seq": kept.seq, "time": kept.ts, "die_col": die[0], "die_row": die[1],
+                "site": site, "kind": kept.kind or geo.get("kind", ""),
+                "line_type": geo.get("line_type", ""), "metal": geo.get("metal", ""),
+                "width_um": width, "gap_um": gap, "length_um": geo.get("length_um"),
+                "w_over_g": (width / gap) if width and gap else None,
+                "landing": kept.landing,
+                "retries": sum(1 for x in rec.landings if x.what == "landing" and x.seq != kept.seq),
+                "cal_id": kept.cal_id or "",
+                "raw_file": kept.raw.path if kept.raw else "", "raw_sha256": kept.raw.sha256 if kept.raw else "",
+                "corrected_file": kept.corrected.path if kept.corrected else "",
+                "corrected_sha256": kept.corrected.sha256 if kept.corrected else "", "files_ok": None,
+                "verdict": kept.verdict.value, "decision": rec.decision.action,
+                "decision_reason": rec.decision.reason,
+                "notes": " | ".join(notes_by_site.get((die, site), [])),
+            }
+            for c in kept.checks:
+                check_units.setdefault(c.name, c.unit)
+                col = check_column(c.name)
+                row[col] = c.verdict.value
+                row[f"{col}_value"] = c.value
+                row[f"{col}_limit"] = c.limit
+                row[f"{col}_at_hz"] = c.at_hz
+            flat = flatten_metrics(kept.metrics)
+            row.update(flat)
+            metric_cols.update(dict.fromkeys(flat))
+            kept_rows.append((kept, row))
+    rows = [row for _, row in sorted(kept_rows, key=lambda kr: kr[0].seq)]
+    return SessionIndex(opened, sites, rows, by_kind["landing"], by_kind["decision"], by_kind["note"],
+                        by_kind["cal"], by_kind["drift"], by_kind["error"], state.closed, check_units,
+                        sorted(metric_cols, key=metric_sort_key), state)
 
 
 _METRIC_ORDER = ("z0", "alpha", "loss", "eps", "q", "beta", "gamma", "r_", "l_", "g_", "c_")
@@ -455,7 +439,7 @@ def csv_cell(value: Any) -> Any:
 
 
 _INT_COLS = {"seq", "die_col", "die_row", "landing", "retries", "files_ok"}
-_TEXT_COLS = {"time", "site", "kind", "line_type", "metal", "cal_id", "verdict", "notes"}
+_TEXT_COLS = {"time", "site", "kind", "line_type", "metal", "cal_id", "verdict", "decision", "decision_reason", "notes"}
 
 
 def read_manifest_csv(path: Path) -> list[dict]:
@@ -485,17 +469,18 @@ def readme_text(index: SessionIndex, chain: ChainStatus) -> str:
     """The short README of the bundle: what is where and what each column means."""
     opened = index.opened
     lines = [
-        f"# probelog bundle of session {opened.get('session_id', '?')}",
+        f"# probelog bundle of session {opened.session_id or '?'}",
         "",
-        f"Wafer {opened.get('wafer', '?')} (lot {opened.get('lot', '?')}), chip {opened.get('chip', '?')}, "
-        f"plan {opened.get('plan_name', '?')}, operator {opened.get('operator', '?')}.",
+        f"Wafer {opened.wafer or '?'} (lot {opened.lot or '?'}), chip {opened.chip or '?'}, "
+        f"plan {opened.plan_name or '?'}, operator {opened.operator or '?'}.",
         f"Journal chain: {'intact' if chain.ok else 'BROKEN: ' + chain.problem}; "
         f"{chain.total} events; SHA-256 of the last line: {chain.last_hash}",
         "Keep that hash somewhere else: with it, any later edit of journal.jsonl shows.",
         "",
         "## Contents",
         "",
-        "- `manifest.csv`: one row per kept sweep (landings with an accept decision).",
+        "- `manifest.csv`: one row per kept sweep (landings with an accept decision; a FAIL",
+        "  landing kept on purpose has decision `accept-despite-fail` and the reason).",
         "- `data/`: every Touchstone file of the session, same layout as the session folder:",
         "  `data/d<col>_<row>/<site>/L<landing>-raw.s2p` and `-cor.s2p`; calibration data in",
         "  `data/cal/<cal_id>/` (raw standards and the saved cal set).",

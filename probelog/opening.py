@@ -15,6 +15,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from probelog import events as ev
+from probelog import state as st
 from probelog.manifest import ChainStatus, SessionFormatError, chain_status, index_session, read_journal, read_manifest_csv
 
 
@@ -23,14 +25,17 @@ class SessionData:
     """One session (or bundle) opened for analysis.
 
     ``manifest``: list of dict rows, one per kept sweep (columns in README.md of a
-    bundle); ``events``: every journal event as a dict; ``chain``: hash-chain
+    bundle); ``events``: every journal event, typed (probelog.events.Event);
+    ``state``: the session folded from them (probelog.state.SessionState: die
+    status, decisions, metrics at a chosen frequency...); ``chain``: hash-chain
     status. Touchstone files are parsed lazily, once, on first use.
     """
 
     path: Path
     manifest: list[dict]
-    events: list[dict]
+    events: list[ev.Event]
     chain: ChainStatus
+    state: st.SessionState = field(default_factory=st.SessionState)
     _networks: dict[int, Any] | None = field(default=None, repr=False)
 
     def to_pandas(self):
@@ -89,7 +94,7 @@ def open_session(path: str | Path) -> SessionData:
     else:
         manifest = index_session(journal).rows
     return SessionData(path=path, manifest=manifest, events=journal.events,
-                       chain=chain_status(path, journal))
+                       chain=chain_status(path, journal), state=journal.state)
 
 
 __all__ = ["open_session", "SessionData", "SessionFormatError"]

@@ -24,6 +24,7 @@ from matplotlib import rc_context
 from matplotlib.figure import Figure
 from matplotlib.text import Text
 
+from probelog import events as ev
 from probelog.pad_free_bundle import section as pad_free_section
 from probelog.manifest import ChainStatus, SessionIndex, check_column
 
@@ -85,8 +86,8 @@ def _table(header: Iterable[str], rows: Iterable[Iterable[Any]], cls: str = "") 
     return f'<table class="{cls}"><thead><tr>{head}</tr></thead><tbody>{"".join(body)}</tbody></table>'
 
 
-def _die(p: dict) -> str:
-    d = p.get("die")
+def _die(data: Any) -> str:
+    d = getattr(data, "die", None)
     return f"({d[0]}, {d[1]})" if d else ""
 
 
@@ -127,26 +128,29 @@ def _metric_kind(col: str) -> str | None:
 
 def _header(inp: ReportInputs) -> str:
     o, chain = inp.index.opened, inp.chain
-    s = o.get("settings") or {}
-    bench = o.get("bench") or {}
+    s = o.settings
+    bench = o.bench
     closed = inp.index.closed
+    resumes = inp.index.state.resumes
     rows = [
-        ("Session", o.get("session_id")), ("Wafer / lot", f"{o.get('wafer')} / {o.get('lot')}"),
-        ("Chip", o.get("chip")), ("Plan", f"{o.get('plan_name')} ({o.get('plan_file')}, SHA-256 {o.get('plan_sha256')})"),
-        ("Operator", o.get("operator")), ("Probes", ", ".join(map(str, o.get("probes") or []))),
+        ("Session", o.session_id), ("Wafer / lot", f"{o.wafer} / {o.lot}"),
+        ("Chip", o.chip), ("Plan", f"{o.plan_name} ({o.plan_file}, SHA-256 {o.plan_sha256})"),
+        ("Operator", o.operator), ("Probes", ", ".join(o.probes)),
         ("Bench", f"{bench.get('description', '')} | VNA: {bench.get('vna_idn', '')} | prober: {bench.get('prober_idn', '')}"),
-        ("Sweep", f"{_ghz(s.get('start_hz'))} to {_ghz(s.get('stop_hz'))} GHz, {s.get('points')} points, "
-                  f"IF bandwidth {s.get('ifbw_hz')} Hz, {s.get('power_dbm')} dBm"),
-        ("probelog", o.get("probelog_version")),
+        ("Sweep", f"{_ghz(s.start_hz)} to {_ghz(s.stop_hz)} GHz, {s.points} points, "
+                  f"IF bandwidth {s.ifbw_hz} Hz, {s.power_dbm} dBm"),
+        ("probelog", o.probelog_version),
+        ("Resumed", "; ".join(f"{r.ts} by {r.operator or r.login} (probelog {r.probelog_version})" for r in resumes)
+         or "never"),
         ("Closed", "not closed (session ended without session-closed)" if closed is None
-         else f"{'completed' if closed.get('completed') else 'stopped early'}: {_summary_text(closed.get('summary'))}"),
+         else f"{'completed' if closed.completed else 'stopped early'}: {_summary_text(closed.summary)}"),
     ]
     state = "intact" if chain.ok else "BROKEN"
     count = f"{chain.total} events" if chain.ok else f"intact through line {chain.events} of {chain.total}"
     cls = "ok" if chain.ok else "bad"
     torn = "<p class='bad'>The journal ended in a torn line (crash while writing); it was not read.</p>" if inp.torn_tail else ""
     return (
-        f"<h1>Probing session {_esc(o.get('session_id'))}</h1>"
+        f"<h1>Probing session {_esc(o.session_id)}</h1>"
         + _table(("", ""), rows, "kv")
         + f'<div class="chain {cls}"><b>Journal hash chain: {state}</b> ({count}, '
         f"checked by {_esc(chain.checked_by)}){'. ' + _esc(chain.problem) if chain.problem else ''}<br>"
@@ -168,14 +172,18 @@ def _ghz(hz: Any) -> str:
 
 def _summary(inp: ReportInputs) -> str:
     idx = inp.index
-    actions = Counter(ev["payload"].get("action") for ev in idx.decisions)
+    state = idx.state
+    relands = sum(1 for by_site in state.sites.values() for rec in by_site.values()
+                  for d in rec.decisions if d.action == "reland")
     verdicts = Counter(r.get("verdict") for r in idx.rows)
     dies = {(r["die_col"], r["die_row"]) for r in idx.rows}
     rows = [
         ("Kept sweeps", len(idx.rows)), ("Dies with kept sweeps", len(dies)),
         ("Sites", len({r["site"] for r in idx.rows})), ("Landings (all)", len(idx.landings)),
-        ("Re-landed", actions.get("reland", 0)), ("Skipped", actions.get("skip", 0)),
-        ("Given up", actions.get("give-up", 0)), ("Notes", len(idx.notes)),
+        ("Accepted", state.n_accepted),
+        ("Accepted despite FAIL", state.n_accepted_despite_fail),
+        ("Re-landed", relands), ("Skipped", state.n_skipped),
+        ("Given up", state.n_given_up), ("Notes", len(idx.notes)),
         ("Kept verdicts", ", ".join(f"{k}: {v}" for k, v in sorted(verdicts.items()))),
         ("File integrity", "all files present, SHA-256 match" if not inp.integrity
          else f"{len(inp.integrity)} problem(s), see below"),
@@ -265,7 +273,7 @@ def _wafer_map(inp: ReportInputs) -> str:
     ax.set_yticks(range(r0, r1 + 1))
     ax.set_xlabel("die column")
     ax.set_ylabel("die row")
-    ax.set_title(f"{idx.opened.get('wafer', '')}; die frame: worst kept verdict "
+    ax.set_title(f"{idx.opened.wafer}; die frame: worst kept verdict "
                  "(green pass, orange warn, red fail)", fontsize=9)
     fig.tight_layout()
     note = ("" if values else f"<p class='none'>No kept sweep has a numeric value for '{_esc(metric)}'.</p>")
@@ -333,22 +341,22 @@ def _calibration(inp: ReportInputs) -> str:
     rows, ver_rows, agr_rows = [], [], []
     std_count: Counter = Counter()
     status: dict[str, str] = {}
-    for ev in idx.cal_events:
-        p, t = ev["payload"], ev["type"]
-        if t == "cal-standard":
-            std_count[p.get("cal_id")] += 1
-        elif t == "cal-computed":
-            f = p.get("file")
-            rows.append([p.get("cal_id"), p.get("method"), ", ".join(p.get("standards") or []),
-                         f.get("path") if isinstance(f, dict) else f, "yes" if p.get("ok") else "no", p.get("message")])
-        elif t == "cal-verification":
-            ver_rows.append([p.get("cal_id"), p.get("site"), _die(p), p.get("verdict"),
-                             "; ".join(f"{c.get('name')}: {c.get('verdict')}" for c in p.get("checks") or [])])
-        elif t == "cal-agreement":
-            agr_rows.append([p.get("cal_id"), f"{p.get('method')} vs {p.get('other_method')}",
-                             p.get("worst"), _ghz(p.get("at_hz")), p.get("verdict")])
-        elif t in ("cal-accepted", "cal-rejected"):
-            status[p.get("cal_id")] = f"{t[4:]}: {p.get('reason', '')}"
+    for e in idx.cal_events:
+        d = e.data
+        if isinstance(d, ev.CalStandard):
+            std_count[d.cal_id] += 1
+        elif isinstance(d, ev.CalComputed):
+            kit = f" (kit SHA-256 {d.kit_sha256[:12]}...)" if d.kit_sha256 else ""
+            rows.append([d.cal_id, d.method + kit, ", ".join(d.standards),
+                         d.file.path if d.file else "", "yes" if d.ok else "no", d.message])
+        elif isinstance(d, ev.CalVerification):
+            ver_rows.append([d.cal_id, d.site, _die(d), d.verdict.value,
+                             "; ".join(f"{c.name}: {c.verdict.value}" for c in d.checks)])
+        elif isinstance(d, ev.CalAgreement):
+            agr_rows.append([d.cal_id, f"{d.method} vs {d.other_method}",
+                             d.worst, _ghz(d.at_hz), d.verdict.value])
+        elif isinstance(d, (ev.CalAccepted, ev.CalRejected)):
+            status[str(d.cal_id)] = f"{e.type[4:]}: {d.reason}"
     for r in rows:
         r.insert(3, std_count.get(r[0], 0))
         r.append(status.get(r[0], "no decision"))
@@ -374,18 +382,17 @@ def _smith(inp: ReportInputs) -> str:
     import skrf
 
     traces = []
-    for ev in inp.index.cal_events:
-        if ev["type"] != "cal-verification":
+    for e in inp.index.cal_events:
+        d = e.data
+        if not isinstance(d, ev.CalVerification):
             continue
-        p = ev["payload"]
-        kind = inp.index.sites.get(p.get("site"), {}).get("kind")
+        kind = inp.index.sites.get(d.site, {}).get("kind")
         if kind is not None and kind not in STUB_KINDS:
             continue
-        ref = p.get("corrected") or p.get("raw")
-        path = ref.get("path") if isinstance(ref, dict) else ref
-        ntwk = inp.cal_networks.get(path)
+        ref = d.corrected or d.raw
+        ntwk = inp.cal_networks.get(ref.path) if ref is not None else None
         if ntwk is not None:
-            traces.append((f"{p.get('cal_id')} {p.get('site')} {_die(p)}", ntwk, p.get("verdict")))
+            traces.append((f"{d.cal_id} {d.site} {_die(d)}", ntwk, d.verdict.value))
     if not traces:
         return ""
     fig = Figure(figsize=(12, 5.6))
@@ -496,43 +503,49 @@ def _checks(inp: ReportInputs) -> str:
                      counts.get("n/a", 0), worst[1] if worst else ""])
     flagged = [[r["die_col"], r["die_row"], r["site"], r["landing"], r["verdict"],
                 "; ".join(f"{name}: {r.get(check_column(name))}" for name in idx.check_units
-                          if r.get(check_column(name)) in ("warn", "fail"))]
+                          if r.get(check_column(name)) in ("warn", "fail")),
+                f"{r.get('decision', '')}: {r.get('decision_reason') or ''}".rstrip(": ")]
                for r in idx.rows if r.get("verdict") in ("warn", "fail")]
     flagged.sort(key=lambda x: (x[4] != "fail", x[0], x[1], x[2]))
     flagged, more = _capped(flagged, "rows (filter verdict in manifest.csv)")
     return ("<h2 id='checks'>Checks on kept sweeps</h2>"
             + _table(("check", "pass", "warn", "fail", "n/a", "worst flagged"), rows)
             + f"<h3>Kept despite a warn or fail verdict ({sum(1 for r in idx.rows if r.get('verdict') in ('warn', 'fail'))})</h3>"
-            + _table(("die col", "die row", "site", "landing", "verdict", "flagged by"), flagged) + more)
+            + _table(("die col", "die row", "site", "landing", "verdict", "flagged by", "decision"), flagged) + more)
 
 
 def _retries_and_notes(inp: ReportInputs) -> str:
     idx = inp.index
-    landed: dict[tuple, list] = defaultdict(list)
-    for ev in idx.landings:
-        p = ev["payload"]
-        landed[(tuple(p.get("die") or ()), p.get("site"))].append(p)
+    landed: dict[tuple, list[ev.Landing]] = defaultdict(list)
+    for e in idx.landings:
+        if isinstance(e.data, ev.Landing):
+            landed[(e.data.die, e.data.site)].append(e.data)
     reasons: dict[tuple, list[str]] = defaultdict(list)
     other = []
-    for ev in idx.decisions:
-        p = ev["payload"]
-        k = (tuple(p.get("die") or ()), p.get("site"))
-        if p.get("action") == "reland":
-            reasons[k].append(f"L{p.get('landing')}: {p.get('reason') or ''}")
-        elif p.get("action") in ("skip", "give-up"):
-            other.append([ev["ts"], _die(p), p.get("site"), p.get("action"), p.get("reason")])
+    for e in idx.decisions:
+        d = e.data
+        if isinstance(d, ev.DieSkipped):
+            other.append([e.ts, _die(d), ", ".join(d.sites), "skip (whole die)", d.reason])
+            continue
+        if not isinstance(d, ev.Decision) or d.standard:
+            continue
+        k = (d.die, d.site)
+        if d.action == ev.RELAND:
+            reasons[k].append(f"L{d.landing}: {d.reason}")
+        elif d.action in (ev.SKIP, ev.GIVE_UP):
+            other.append([e.ts, _die(d), d.site, d.action, d.reason])
     retry_rows = []
     for k, ps in landed.items():
         if len(ps) > 1:
-            retry_rows.append([f"({k[0][0]}, {k[0][1]})" if k[0] else "", k[1], len(ps),
-                               " > ".join(str(p.get("verdict")) for p in ps), " | ".join(reasons.get(k, []))])
-    notes = [[ev["ts"], _die(ev["payload"]), ev["payload"].get("site") or "", ev["payload"].get("text")]
-             for ev in idx.notes]
-    errs = [[ev["ts"], ev["type"], ev["payload"].get("where") or "",
-             ev["payload"].get("message") or ev["payload"].get("reason") or ""] for ev in idx.errors]
-    drifts = [[ev["ts"], _die(ev["payload"]), ev["payload"].get("site"), ev["payload"].get("verdict"),
-               "; ".join(f"{c.get('name')}: {c.get('verdict')}" for c in ev["payload"].get("checks") or [])]
-              for ev in idx.drifts]
+            retry_rows.append([f"({k[0][0]}, {k[0][1]})", k[1], len(ps),
+                               " > ".join(p.verdict.value for p in ps), " | ".join(reasons.get(k, []))])
+    notes = [[e.ts, _die(e.data), getattr(e.data, "site", None) or "", getattr(e.data, "text", "")]
+             for e in idx.notes]
+    errs = [[e.ts, e.type, getattr(e.data, "where", "") or "",
+             getattr(e.data, "message", "") or getattr(e.data, "reason", "") or ""] for e in idx.errors]
+    drifts = [[e.ts, _die(e.data), e.data.site, e.data.verdict.value,
+               "; ".join(f"{c.name}: {c.verdict.value}" for c in e.data.checks)]
+              for e in idx.drifts if isinstance(e.data, ev.Drift)]
     n_retry = len(retry_rows)
     retry_rows, more = _capped(retry_rows, "re-landed sites (see the retries column of manifest.csv)")
     return (f"<h2 id='retries'>Retries ({n_retry} die/site pairs landed more than once)</h2>"
@@ -575,7 +588,7 @@ def build_report(inp: ReportInputs) -> str:
                         _calibration(inp), _overlays(inp), _line_trends(inp),
                         pad_free_section(inp.index, inp.networks), _checks(inp),
                         _retries_and_notes(inp)))
-    title = html.escape(f"probelog report {inp.index.opened.get('session_id', '')}")
+    title = html.escape(f"probelog report {inp.index.opened.session_id}")
     return (f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>{title}</title>"
             f"<style>{CSS}</style></head><body>{body}</body></html>")
 

@@ -4,6 +4,7 @@ at a chosen frequency; resume trusts no file; a bad plan leaves no folder."""
 
 from __future__ import annotations
 
+import re
 import shutil
 
 import pytest
@@ -251,3 +252,38 @@ def test_the_kit_text_and_hash_are_journaled_with_the_cal(tmp_path):
     assert computed.kit_text == KIT.read_text(encoding="utf-8")
     assert computed.kit_sha256 == hashlib.sha256(KIT.read_bytes()).hexdigest()
     assert e.state.active.kit_sha256 == computed.kit_sha256
+
+
+def test_an_accepted_fail_shows_in_manifest_report_history_map_and_verify(tmp_path, capsys):
+    """The reader bug of issue 11: a FAIL kept with a reason vanished from the
+    summary, the die history and the map; every reader now shows it."""
+    from probelog.export import export_bundle
+    from probelog.manifest import read_manifest_csv
+    from probelog.tui.cli import main as cli_main
+    from probelog.tui.screens.probe import die_history
+
+    e, bench = start(tmp_path, sites=("ln-b",))
+    calibrate(e)
+    bench.vna.faults[((1, 1), "ln-b")] = ["lifted"]
+    e.measure()
+    e.accept("lifted tip kept: analyst wants the open-circuit sweep")
+    for _ in range(2):
+        e.measure()
+        e.accept()
+    history = die_history(e.state, (1, 1))
+    assert history[-1] == "ln-b L1: accept-despite-fail (lifted tip kept: analyst wants the open-circuit sweep)"
+    metrics = st.die_metrics(e.state)
+    assert set(metrics) == {(2, 1), (3, 1)}  # the lifted landing has no line metrics; the others do
+    assert all("ln-b.z0_re" in m for m in metrics.values())
+    folder = e.session_dir
+    e.close()
+    out = export_bundle(folder, tmp_path / "bundle", progress=False)
+    rows = {(r["die_col"], r["die_row"]): r for r in read_manifest_csv(out / "manifest.csv")}
+    assert rows[(1, 1)]["decision"] == "accept-despite-fail" and rows[(1, 1)]["verdict"] == "fail"
+    assert rows[(1, 1)]["decision_reason"].startswith("lifted tip kept")
+    assert rows[(2, 1)]["decision"] == "accept"
+    page = (out / "report.html").read_text(encoding="utf-8")
+    assert re.search(r"Accepted despite FAIL</td><td>1<", page), "report summary row missing"
+    assert "accept-despite-fail: lifted tip kept" in page
+    assert cli_main(["verify", str(folder)]) == 0
+    assert "2 accepted, 1 accepted despite FAIL, 0 skipped, 0 given up" in capsys.readouterr().out

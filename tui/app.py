@@ -26,6 +26,7 @@ from textual.binding import Binding
 from textual.screen import ModalScreen, Screen
 from textual.worker import Worker, WorkerState
 
+from probelog import events as ev
 from probelog.engine.protocol import EngineProtocol
 from probelog.tui.messages import EngineNotified, EngineReady, JournalGrew, SessionClosed
 from probelog.tui.screens.base import BenchScreen
@@ -61,7 +62,7 @@ class ProbelogApp(App[int]):
         self.show_cautions = show_cautions
         self.intake = intake
         self.engine: EngineProtocol | None = None
-        self.journal_events: list[dict] = []
+        self.journal_events: list[ev.Event] = []
         self._tail: JournalTail | None = None
         self._session_closing = False
 
@@ -88,7 +89,7 @@ class ProbelogApp(App[int]):
         tail = JournalTail(engine.session_dir / "journal.jsonl")
         events = tail.read_new()
         cautions = None
-        if self.show_cautions and not any(e.get("type") == "cautions-shown" for e in events):
+        if self.show_cautions and not any(e.type == "cautions-shown" for e in events):
             cautions = engine.show_cautions()
             events += tail.read_new()
         self._tail = tail

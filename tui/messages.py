@@ -11,6 +11,8 @@ from typing import Any
 
 from textual.message import Message
 
+from probelog import events as ev
+
 
 class EngineNotified(Message):
     """An engine event (PhaseChanged, StepMeasured, ...) arrived from a worker thread."""
@@ -73,7 +75,7 @@ class SessionClosed(Message):
 class JournalGrew(Message):
     """New complete lines were read from the session's journal.jsonl."""
 
-    def __init__(self, events: list[dict]) -> None:
+    def __init__(self, events: list[ev.Event]) -> None:
         super().__init__()
         self.events = events
 
@@ -81,7 +83,7 @@ class JournalGrew(Message):
 class EngineReady(Message):
     """The engine is open; ``cautions`` is the text to show once (or None)."""
 
-    def __init__(self, engine: Any, cautions: str | None, events: list[dict]) -> None:
+    def __init__(self, engine: Any, cautions: str | None, events: list[ev.Event]) -> None:
         super().__init__()
         self.engine = engine
         self.cautions = cautions

@@ -33,6 +33,8 @@ from probelog.session import (
     StepKind,
     StepMeasured,
 )
+from probelog.events import decode_lines
+from probelog.state import SessionState, fold
 from probelog.verdicts import CheckResult, Verdict, overall
 
 CAUTIONS = ("RF power stays at or below the plan's limit. Wear an ESD strap. Never move in XY "
@@ -189,6 +191,11 @@ class FakeEngine:
         self._emit(PhaseChanged(seq=seq, phase=phase))
 
     @property
+    def state(self) -> SessionState:
+        """The journal folded by the real reducer (what the UI reads for map and history)."""
+        return fold(decode_lines(self.journal.path.read_bytes()))
+
+    @property
     def phase(self) -> Phase:
         return self._phase
 
@@ -282,13 +289,17 @@ class FakeEngine:
             net = lifted_tip_network() if fault else good_network(step.site_kind)
             checks = [contact_check(net, step.site_kind), passivity_check(net)]
             verdict = overall(checks)
-            metrics = None if fault else {"z0_ohm": 50.0 + step.die[0], "eps_eff": EPS_EFF}
+            # per-frequency lists, as the real engine journals line metrics
+            metrics = None if fault else {"f_hz": [40e9], "z0_ohm": [50.0 + step.die[0]], "eps_eff": [EPS_EFF]}
             kind = "drift" if step.kind is StepKind.DRIFT else "landing"
-            seq = self.journal.append(kind, {
-                "die": list(step.die), "site": step.site, "kind": step.site_kind, "landing": step.landing,
+            payload = {
+                "die": list(step.die), "site": step.site, "landing": step.landing,
                 "cal_id": self._active.cal_id if self._active else None, "raw": None, "corrected": None,
-                "checks": [c.to_json() for c in checks], "verdict": verdict.value, "metrics": metrics,
-                "touchdowns": dict(self._touch)})
+                "checks": [c.to_json() for c in checks], "verdict": verdict.value,
+                "touchdowns": dict(self._touch)}
+            if kind == "landing":
+                payload.update(kind=step.site_kind, metrics=metrics)
+            seq = self.journal.append(kind, payload)
             out = LandingOutcome(step, net, net, checks, verdict, metrics, seq)
             if step.kind is StepKind.DRIFT:
                 self._drift_due = False
@@ -362,8 +373,8 @@ class FakeEngine:
             done = len(self._finished) == len(DIES) * len(SITES)
             self._set_phase(Phase.DONE if done else Phase.PROBING, seq)
 
-    def accept(self) -> None:
-        self._decide("accept", "")
+    def accept(self, reason: str = "") -> None:
+        self._decide("accept", reason)
 
     def reland(self, reason: str = "") -> None:
         self._decide("reland", reason)

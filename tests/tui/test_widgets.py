@@ -125,9 +125,9 @@ def test_journal_tail_waits_for_a_torn_line(tmp_path):
     path = tmp_path / "journal.jsonl"
     path.write_bytes(b'{"seq":1,"type":"note","payload":{"text":"a"}}\n{"seq":2,"ty')
     tail = JournalTail(path)
-    assert [e["seq"] for e in tail.read_new()] == [1]
+    assert [e.seq for e in tail.read_new()] == [1]
     with path.open("ab") as fh:
         fh.write(b'pe":"note","payload":{"text":"b"}}\n')
     events = tail.read_new()
-    assert [e["seq"] for e in events] == [2]
+    assert [e.seq for e in events] == [2]
     assert "“b”" in describe(events[0]).plain

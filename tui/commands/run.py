@@ -114,15 +114,17 @@ def _trace_acks(engine) -> None:
 
 def _probe_ids_of(session: str) -> tuple[str, ...]:
     """Probe ids from the session-opened line, read without opening for writing."""
-    import json
     from pathlib import Path
 
+    from probelog import events as ev
     from probelog.tui.cli import UsageError
 
     path = Path(session) / "journal.jsonl"
     try:
         with path.open("rb") as fh:
-            first = json.loads(fh.readline())
-        return tuple(first["payload"]["probes"])
-    except (OSError, ValueError, KeyError) as exc:
+            first = ev.Decoder(str(path)).line(fh.readline().rstrip(b"\n"))
+    except (OSError, ev.EventError) as exc:
         raise UsageError(f"{path}: cannot read the session's first event ({exc})") from None
+    if not isinstance(first.data, ev.SessionOpened):
+        raise UsageError(f"{path}: the first event is {first.type!r}, expected 'session-opened'")
+    return tuple(first.data.probes)

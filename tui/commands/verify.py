@@ -43,6 +43,7 @@ def run(args: argparse.Namespace) -> int:
         return 1
     for w in report.warnings:
         print(f"  warning: line {w.line}, {w.file}: {w.message}; found {w.found}")
+    print(_session_line(args.session))
     if report.ok:
         note = f", {len(report.warnings)} warning(s) above" if report.warnings else ""
         print(f"{args.session}: intact, {report.events} events, every data file matches{note}")
@@ -54,3 +55,19 @@ def run(args: argparse.Namespace) -> int:
         where = f"line {p.line}" if p.line is not None else "no line"
         print(f"  {where}, {p.file}: {p.message}; expected {p.expected}, found {p.found}")
     return 1
+
+
+def _session_line(session: str) -> str:
+    """What the session holds, from the folded state (probelog.state)."""
+    from probelog import events as ev
+    from probelog import state as st
+
+    try:
+        s = st.fold(ev.read_session(session))
+    except (OSError, ev.EventError) as exc:
+        return f"{session}: events cannot be read as a session ({exc})"
+    wafer = s.opened.wafer if s.opened else "?"
+    closed = "not closed" if s.closed is None else ("completed" if s.closed.completed else "closed early")
+    return (f"{session}: wafer {wafer}, {closed}; {s.n_accepted} accepted, "
+            f"{s.n_accepted_despite_fail} accepted despite FAIL, {s.n_skipped} skipped, {s.n_given_up} given up; "
+            f"{s.n_landings} landings, {len(s.resumes)} resume(s)")

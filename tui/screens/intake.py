@@ -3,7 +3,6 @@ unfinished session to resume. Produces a :class:`SessionRequest`."""
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -16,6 +15,7 @@ from textual.screen import Screen
 from textual.widgets import Button, Header, Input, Label, OptionList, Select, Static
 from textual.widgets.option_list import Option
 
+from probelog import events as ev
 from probelog.tui.widgets.bench_footer import BenchFooter
 
 BENCH_KINDS = (
@@ -60,28 +60,21 @@ class Unfinished:
 
 
 def find_unfinished(root: Path) -> list[Unfinished]:
-    """Sessions under ``root`` that can be resumed, newest folder first."""
+    """Sessions under ``root`` that can be resumed, newest folder first (events
+    decoded by probelog.events; a journal that does not decode is left out: resuming
+    it would refuse with the line anyway)."""
     found = []
     for journal in sorted(Path(root).glob("*/journal.jsonl"), reverse=True):
         try:
-            lines = journal.read_bytes().splitlines()
-        except OSError:
+            events = ev.decode_lines(journal.read_bytes(), str(journal))
+        except (OSError, ev.EventError):
             continue
-        opened, closed, n = {}, None, 0
-        for raw in lines:
-            try:
-                ev = json.loads(raw)
-            except ValueError:
-                continue  # a torn tail; the journal's own recovery handles it on resume
-            n += 1
-            if ev.get("type") == "session-opened":
-                opened = ev.get("payload", {})
-            elif ev.get("type") == "session-closed":
-                closed = bool(ev.get("payload", {}).get("completed"))
-        if closed:
+        opened = next((e.data for e in events if isinstance(e.data, ev.SessionOpened)), None)
+        closed = next((e.data for e in reversed(events) if isinstance(e.data, ev.SessionClosed)), None)
+        if closed is not None and closed.completed:
             continue
-        found.append(Unfinished(journal.parent, opened.get("operator", "?"),
-                                opened.get("wafer", "?"), n, closed is not None))
+        found.append(Unfinished(journal.parent, opened.operator if opened else "?",
+                                opened.wafer if opened else "?", len(events), closed is not None))
     return found
 
 

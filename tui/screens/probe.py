@@ -12,6 +12,9 @@ from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.widgets import Header
 
+from probelog import events as ev
+from probelog import state as st
+from probelog.state import SessionState
 from probelog.tui.widgets.bench_footer import BenchFooter
 from probelog.tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from probelog.tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
@@ -30,44 +33,17 @@ RECAL_PRESETS = ("drift reference out of limits", "probes re-planarised", "sched
 COMPACT_WIDTH, COMPACT_HEIGHT = 100, 32
 
 
-def flat_metrics(metrics: Any, prefix: str = "") -> dict[str, float]:
-    """Numeric leaves of a (possibly nested) metrics dict, keys joined with '.'."""
-    out: dict[str, float] = {}
-    if isinstance(metrics, dict):
-        for k, v in metrics.items():
-            key = f"{prefix}{k}"
-            if isinstance(v, (int, float)) and not isinstance(v, bool):
-                out[key] = float(v)
-            elif isinstance(v, dict):
-                out.update(flat_metrics(v, key + "."))
-    return out
-
-
-def die_metrics(journal_events: list[dict],
-                into: dict[tuple[int, int], dict[str, float]] | None = None) -> dict[tuple[int, int], dict[str, float]]:
-    """Latest landing metrics per die, from the journal (the site name prefixes each
-    key); with ``into``, folds the events into an earlier result and returns it."""
-    out: dict[tuple[int, int], dict[str, float]] = {} if into is None else into
-    for ev in journal_events:
-        p = ev.get("payload") or {}
-        if ev.get("type") == "landing" and p.get("metrics"):
-            die = tuple(p["die"])
-            out.setdefault(die, {}).update(flat_metrics(p["metrics"], f"{p.get('site')}."))
-    return out
-
-
-def die_history(journal_events: list[dict], die: tuple[int, int]) -> list[str]:
-    """Landings and decisions on one die, one line each, from the journal."""
+def die_history(state: SessionState, die: tuple[int, int]) -> list[str]:
+    """Landings and decisions on one die, one line each, from the session state
+    (an accepted FAIL shows as accept-despite-fail with its reason)."""
     lines = []
-    for ev in journal_events:
-        p = ev.get("payload") or {}
-        if ev.get("type") not in ("landing", "decision") or tuple(p.get("die") or ()) != die:
-            continue
-        if ev["type"] == "landing":
-            lines.append(f"{p.get('site')} L{p.get('landing')}: {verdict_word_from(p.get('verdict'))}")
+    for _seq, site, rec in st.die_history(state, die):
+        if isinstance(rec, st.LandingRec):
+            what = "" if rec.what == "landing" else f" ({rec.what})"
+            lines.append(f"{site} L{rec.landing}{what}: {verdict_word_from(rec.verdict.value)}")
         else:
-            reason = f" ({p['reason']})" if p.get("reason") else ""
-            lines.append(f"{p.get('site')} L{p.get('landing')}: {p.get('action')}{reason}")
+            reason = f" ({rec.reason})" if rec.reason else ""
+            lines.append(f"{site} L{rec.landing}: {rec.action}{reason}")
     return lines
 
 
@@ -122,8 +98,6 @@ class Probe(BenchScreen):
         self.title = "probelog"
         self.sub_title = "probing"
         self._compact: bool | None = None
-        self._metrics: dict[tuple[int, int], dict[str, float]] = {}
-        self._metrics_seen = 0  # journal events folded into _metrics so far
         self._keys_state: tuple | None = None
         super().on_mount()
         last = self.engine.last_outcome
@@ -225,7 +199,7 @@ class Probe(BenchScreen):
 
     def on_die_map_history_wanted(self, message: DieMap.HistoryWanted) -> None:
         die = message.die
-        lines = die_history(list(self.app.journal_events), die)
+        lines = die_history(self.engine.state, die)
         status = self.engine.wafer_status.get(die, "?")
         body = "\n".join(lines[-8:]) if lines else "nothing measured here yet"
         self.notify(body, title=f"die {die[0]},{die[1]}: {status}", timeout=8)
@@ -305,19 +279,15 @@ class Probe(BenchScreen):
             self._keys_state = keys_state
             self.refresh_bindings()
 
-    def journal_grew(self, events_: list[dict]) -> None:
+    def journal_grew(self, events_: list[ev.Event]) -> None:
         super().journal_grew(events_)
-        if any(e.get("type") == "landing" and (e.get("payload") or {}).get("metrics") for e in events_):
+        if any(e.type == "decision" for e in events_):  # a kept landing may bring metrics
             die_map = self.query_one("#map", DieMap)
             die_map.update_state(self.engine.wafer_status, die_map.current, self._die_metrics())
 
     def _die_metrics(self) -> dict[tuple[int, int], dict[str, float]]:
-        """die_metrics of the whole journal, folding in only the events not seen yet
-        (a rescan per landing would grow with the session)."""
-        events = self.app.journal_events
-        die_metrics(events[self._metrics_seen:], into=self._metrics)
-        self._metrics_seen = len(events)
-        return self._metrics
+        """Each die's kept-landing metrics at one journaled frequency (the middle one), from the state."""
+        return st.die_metrics(self.engine.state)
 
     def _where(self, doing: str | None = None) -> None:
         engine = self.engine

@@ -3,7 +3,8 @@ a chosen metric; arrow keys move a cursor, enter asks to land there next, h show
 what the journal holds for the die under the cursor.
 
 Status marks (never colour alone): ``·`` to do, ``◐`` partly done, ``✔`` done,
-``✖`` failed, ``↷`` skipped; the die under the probes is framed ``[ ]``.
+``!`` accepted despite a FAIL (with a reason), ``✖`` failed, ``↷`` skipped; the die under
+the probes is framed ``[ ]``.
 """
 
 from __future__ import annotations
@@ -18,8 +19,8 @@ from textual.widget import Widget
 
 Die = tuple[int, int]
 
-STATUS_MARK = {"todo": "·", "partial": "◐", "done": "✔", "failed": "✖", "skipped": "↷"}
-STATUS_STYLE = {"todo": "grey50", "partial": "bold cyan", "done": "bold green",
+STATUS_MARK = {"todo": "·", "partial": "◐", "done": "✔", "accepted-despite-fail": "!", "failed": "✖", "skipped": "↷"}
+STATUS_STYLE = {"todo": "grey50", "partial": "bold cyan", "done": "bold green", "accepted-despite-fail": "bold magenta",
                 "failed": "bold red", "skipped": "bold yellow"}
 SHADES = "░▒▓█"
 
