@@ -416,6 +416,29 @@ def bench_scale(quick: bool):
     rig.close()
 
 
+def bench_resume(quick: bool):
+    """Resume a 100,000-event session from its state checkpoint vs folding every event."""
+    sys.path.insert(0, str(ROOT / "bench"))
+    from resume_bench import measure  # bench/resume_bench.py
+
+    rig = SimRig()
+
+    def make_session(tmp: Path):
+        plan = demo_plan(51, drift_every=100000)
+        engine = calibrated_engine(rig, plan, tmp / "sessions")
+        for _ in range(3):
+            engine.measure()
+            engine.accept()
+        folder = engine.session_dir
+        engine.journal.close()  # killed: no session-closed, no snapshot of its own
+        return folder, rig.bench
+
+    try:
+        measure(report, make_session, quick)
+    finally:
+        rig.close()
+
+
 # ---------------------------------------------------------------- 7. UI
 
 
@@ -439,6 +462,7 @@ BENCHES = {
     "journal": bench_journal,
     "landing": bench_landing,
     "scale": bench_scale,
+    "resume": bench_resume,
     "ui": bench_ui,
 }
 

@@ -137,25 +137,6 @@ class SessionState(_S, frozen=True):
         kept = self.last_accepted(die, site)
         return metric_at(kept.metrics if kept else None, name, f_hz)
 
-    def metric_names(self) -> list[str]:
-        names: dict[str, None] = {}
-        for by_site in self.sites.values():
-            for rec in by_site.values():
-                for x in rec.landings:
-                    if x.metrics:
-                        names.update(dict.fromkeys(k for k in x.metrics if k != "f_hz"))
-        return list(names)
-
-    def metric_frequencies(self) -> list[float]:
-        """Every frequency (Hz) a metric was journaled at, ascending."""
-        out: set[float] = set()
-        for by_site in self.sites.values():
-            for rec in by_site.values():
-                for x in rec.landings:
-                    if x.metrics and x.metrics.get("f_hz"):
-                        out.update(float(f) for f in x.metrics["f_hz"] if f is not None)
-        return sorted(out)
-
     def summary(self, planned_sites: int | None = None) -> dict[str, Any]:
         """Counts for summaries: ``accepted`` counts plain accepts, ``accepted_despite_fail``
         the FAIL landings kept with a reason, ``failed`` the give-ups."""
@@ -408,42 +389,3 @@ _HANDLERS: dict[type, Any] = {
     ev.DieSkipped: _die_skipped, ev.Note: _note, ev.Goto: _goto, ev.InstrumentError: _instrument_error,
     ev.Recovered: _recovered, ev.SessionClosed: _closed,
 }
-
-
-# ---------------------------------------------------------------- views for the map and history
-
-
-def middle_frequency(state: SessionState) -> float | None:
-    """The journaled metric frequency (Hz) in the middle of the list, or None."""
-    freqs = state.metric_frequencies()
-    return freqs[len(freqs) // 2] if freqs else None
-
-
-def die_metrics(state: SessionState, f_hz: float | None = None) -> dict[Die, dict[str, float]]:
-    """Per die, every metric of every kept landing at the journaled frequency
-    nearest ``f_hz`` (Hz; default :func:`middle_frequency`), keyed
-    ``<site>.<metric>`` (the die map shades dies by one key)."""
-    f = middle_frequency(state) if f_hz is None else f_hz
-    out: dict[Die, dict[str, float]] = {}
-    if f is None:
-        return out
-    for die, by_site in state.sites.items():
-        for site, rec in by_site.items():
-            kept = rec.accepted_landing
-            if kept is None or not kept.metrics:
-                continue
-            for name in kept.metrics:
-                v = metric_at(kept.metrics, name, f) if name != "f_hz" else None
-                if v is not None:
-                    out.setdefault(die, {})[f"{site}.{name}"] = v
-    return out
-
-
-def die_history(state: SessionState, die: Die) -> list[tuple[int, str, LandingRec | DecisionRec]]:
-    """Landings (site, drift, verification) and decisions on ``die`` in journal
-    order: (seq, site, record)."""
-    rows: list[tuple[int, str, LandingRec | DecisionRec]] = []
-    for site, rec in state.sites.get(die, {}).items():
-        rows += [(x.seq, site, x) for x in rec.landings]
-        rows += [(x.seq, site, x) for x in rec.decisions]
-    return sorted(rows, key=lambda r: r[0])

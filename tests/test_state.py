@@ -14,6 +14,7 @@ from hypothesis import strategies as st_
 import probelog.session as S
 from probelog import events as ev
 from probelog import state as st
+from probelog import state_views as sv
 from probelog.journal import Journal
 from probelog.plan import load_plan_text
 from tests._engine_fakes import fake_bench, plan_text
@@ -150,7 +151,7 @@ def test_metric_at_a_chosen_frequency_from_the_journaled_lists(tmp_path):
     e.accept()
     kept = e.state.last_accepted((1, 1), "ln-b")
     freqs = kept.metrics["f_hz"]
-    assert len(freqs) >= 2 and "alpha_db_per_mm" in e.state.metric_names()
+    assert len(freqs) >= 2 and "alpha_db_per_mm" in sv.metric_names(e.state)
     # nearest journaled point: just above the second frequency picks the second value
     want = kept.metrics["alpha_db_per_mm"][1]
     assert e.state.metric_at((1, 1), "ln-b", "alpha_db_per_mm", freqs[1] * 1.01) == pytest.approx(want)
@@ -272,7 +273,7 @@ def test_an_accepted_fail_shows_in_manifest_report_history_map_and_verify(tmp_pa
         e.accept()
     history = die_history(e.state, (1, 1))
     assert history[-1] == "ln-b L1: accept-despite-fail (lifted tip kept: analyst wants the open-circuit sweep)"
-    metrics = st.die_metrics(e.state)
+    metrics = sv.die_metrics(e.state)
     assert set(metrics) == {(2, 1), (3, 1)}  # the lifted landing has no line metrics; the others do
     assert all("ln-b.z0_re" in m for m in metrics.values())
     folder = e.session_dir

@@ -20,6 +20,10 @@ from probelog import events as ev
 from probelog import state as st
 
 SNAPSHOT_NAME = "state.snapshot"
+# The engine writes a snapshot every EVERY events (and when it closes): resume then
+# folds at most EVERY - 1 events. Writing one costs about as much as reading it
+# (size grows with the session), so not after every event.
+EVERY = 5_000
 
 
 class _Snapshot(msgspec.Struct, frozen=True):

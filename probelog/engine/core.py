@@ -18,6 +18,7 @@ import skrf
 from probelog import events as ev
 from probelog import state as st
 from probelog.bench import Bench, Die
+from probelog.engine import checkpoint
 from probelog.engine.planview import PlanView, expectation
 from probelog.engine.store import Store
 from probelog.engine.types import (CalOutcome, EngineError, EngineEvent, InstrumentError, InstrumentFailed,
@@ -64,7 +65,15 @@ class EngineCore:
         raw = self.journal.append(data.TYPE, ev.encode(data))
         e = self._decoder.event(raw.seq, raw.ts, raw.type, raw.payload, raw.hash)
         self._fold(e)
+        if e.seq % checkpoint.EVERY == 0:
+            self._checkpoint()
         return e
+
+    def _checkpoint(self) -> None:
+        try:
+            checkpoint.save_state(self.session_dir, self.state)
+        except OSError:  # a snapshot only speeds up a resume; the journal is the record
+            pass
 
     def _phase_of(self, s: st.SessionState) -> Phase:
         p = _PHASES.get(s.phase)

@@ -270,10 +270,7 @@ class Engine(Policy):
             self._safe_separate()
             e = self._append(ev.SessionClosed(completed=bool(completed), summary=self.summary()))
             self._emit(SessionClosed(seq=e.seq, completed=bool(completed)))
-            try:
-                self.checkpoint()
-            except OSError:  # a snapshot only speeds up a resume; the journal is the record
-                pass
+            self._checkpoint()
         finally:
             self.journal.close()
 

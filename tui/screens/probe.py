@@ -14,6 +14,7 @@ from textual.widgets import Header
 
 from probelog import events as ev
 from probelog import state as st
+from probelog import state_views as sv
 from probelog.state import SessionState
 from probelog.tui.widgets.bench_footer import BenchFooter
 from probelog.tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
@@ -37,7 +38,7 @@ def die_history(state: SessionState, die: tuple[int, int]) -> list[str]:
     """Landings and decisions on one die, one line each, from the session state
     (an accepted FAIL shows as accept-despite-fail with its reason)."""
     lines = []
-    for _seq, site, rec in st.die_history(state, die):
+    for _seq, site, rec in sv.die_history(state, die):
         if isinstance(rec, st.LandingRec):
             what = "" if rec.what == "landing" else f" ({rec.what})"
             lines.append(f"{site} L{rec.landing}{what}: {verdict_word_from(rec.verdict.value)}")
@@ -287,7 +288,7 @@ class Probe(BenchScreen):
 
     def _die_metrics(self) -> dict[tuple[int, int], dict[str, float]]:
         """Each die's kept-landing metrics at one journaled frequency (the middle one), from the state."""
-        return st.die_metrics(self.engine.state)
+        return sv.die_metrics(self.engine.state)
 
     def _where(self, doing: str | None = None) -> None:
         engine = self.engine
