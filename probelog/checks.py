@@ -57,6 +57,14 @@ class Limits:
     short_r_fail_ohm: float = 1.0  # bad > 1 ohm (trade numbers)
     stub_rotation_warn_ratio: float = 0.8  # common practice, no source
     stub_rotation_fail_ratio: float = 0.5  # common practice, no source
+    # contact from physics on raw data (probelog.contact), distances as fractions of the
+    # raw open-short span: landing repeatability |dS11| ~0.005-0.01 (trade numbers) is
+    # 0.003-0.005 of the span, so 0.05 is ten times that; common practice, no source
+    contact_floor: float = 0.05
+    contact_open_dc_f: float = 25e-15  # probe open vs tip in air: the pad C, 10-30 fF (common practice, no source)
+    contact_short_dl_h: float = 50e-12  # shorted path vs the probe short: a few tens of pH (common practice, no source)
+    contact_judge_max: float = 0.35  # beyond this allowance a tip in air and the open are too far apart to judge
+    raw_transmission_fail_db: float = -30.0  # raw thru: probe + cable loss at most ~20 dB at 150 GHz (realdata README); a lifted tip is at the isolation floor
     # passivity: excess of the largest singular value over 1; trace noise 0.001-0.005 dB rms
     # is 1.2e-4-5.8e-4 in |S| (trade numbers), so these are many sigma away
     passivity_warn: float = 0.005
