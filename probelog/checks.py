@@ -21,6 +21,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from probelog.limits import describe, grade
 from probelog.lines import C0, metrics_from_s
 from probelog.verdicts import CheckResult, Verdict
 
@@ -35,6 +36,7 @@ CHECK_NAMES = (
     "rotation",
     "line-window",
     "repeatability",
+    "population",
     "drift",
 )
 
@@ -65,6 +67,16 @@ class Limits:
     contact_short_dl_h: float = 50e-12  # shorted path vs the probe short: a few tens of pH (common practice, no source)
     contact_judge_max: float = 0.35  # beyond this allowance a tip in air and the open are too far apart to judge
     raw_transmission_fail_db: float = -30.0  # raw thru: probe + cable loss at most ~20 dB at 150 GHz (realdata README); a lifted tip is at the isolation floor
+    # population (probelog.population): accepted landings of the same site on earlier dies.
+    # floor: landing repeatability |dS11| ~0.005-0.01 (trade numbers) is the two-landing
+    # difference; one landing's spread is ~0.003; common practice, no source
+    population_min: float = 1.0
+    population_floor: float = 0.003
+    # die-to-die spread of electrical length (eps_eff +-0.2 %) moves |S| in proportion
+    # to the phase, so the floor rises with frequency: + 0.003 per 100 GHz; common practice, no source
+    population_floor_per_hz: float = 3e-14
+    population_warn_sigma: float = 3.0
+    population_fail_sigma: float = 5.0
     # passivity: excess of the largest singular value over 1; trace noise 0.001-0.005 dB rms
     # is 1.2e-4-5.8e-4 in |S| (trade numbers), so these are many sigma away
     passivity_warn: float = 0.005
@@ -344,49 +356,62 @@ def largest_singular_value(s: np.ndarray) -> np.ndarray:
     return np.sqrt(0.5 * (fro + np.sqrt(disc)))
 
 
-def passivity(f_hz: np.ndarray, s: np.ndarray, limits: Limits) -> CheckResult:
+def passivity(f_hz: np.ndarray, s: np.ndarray, limits: Limits, unc: np.ndarray | None = None) -> CheckResult:
     """Largest singular value of S over frequency: passive iff <= 1 everywhere
-    (I - S^H S positive semidefinite). Value is sigma_max, limit 1 + ``passivity_fail``."""
+    (I - S^H S positive semidefinite). Value is sigma_max; the excess over 1 is
+    graded per frequency against ``passivity_fail`` + 2 u(f) (u: the cal's
+    uncertainty, linear, see :mod:`probelog.limits`) with :func:`probelog.limits.grade`."""
     sigma = largest_singular_value(s)
-    i = int(np.argmax(np.where(np.isnan(sigma), np.inf, sigma)))
+    u = np.zeros(len(sigma)) if unc is None else np.asarray(unc, float)
+    fail = limits.passivity_fail + 2.0 * u
+    verdict, i = grade(sigma - 1.0, limits.passivity_warn + 2.0 * u, fail)
     value = float(sigma[i])
-    verdict = _grade(value - 1.0, limits.passivity_warn, limits.passivity_fail)
+    how = describe(limits.passivity_fail, 2, unc)
     if verdict is Verdict.PASS:
-        msg = f"passive: largest singular value {value:.4f} at {_ghz(f_hz[i])}"
+        msg = f"passive: largest singular value {value:.4f} at {_ghz(f_hz[i])} (allowed 1 + {how})"
+    elif verdict is Verdict.WARN:
+        msg = (f"slightly active at isolated points: largest singular value {value:.4f} at {_ghz(f_hz[i])} "
+               f"(allowed 1 + {fail[i]:.4g} there)")
     else:
-        msg = (f"gives out more power than it takes in: largest singular value {value:.4f} at {_ghz(f_hz[i])} "
-               "(calibration, port mapping or instrument problem)")
-    return _result("passivity", verdict, value, 1.0 + limits.passivity_fail, f_hz[i], msg)
+        msg = (f"gives out more power than it takes in: largest singular value {value:.4f} at {_ghz(f_hz[i])}, "
+               f"allowed 1 + {fail[i]:.4g} there (calibration, port mapping or instrument problem)")
+    return _result("passivity", verdict, value, 1.0 + float(fail[i]), f_hz[i], msg)
 
 
-def _pair_difference(name, f_hz, a, b, warn, fail, ok_msg, bad_msg) -> CheckResult:
+def _pair_difference(name, f_hz, a, b, warn, fail, unc, ok_msg, bad_msg) -> CheckResult:
     d = np.abs(a - b)
-    i = int(np.argmax(np.where(np.isnan(d), np.inf, d)))
+    u = np.zeros(len(d)) if unc is None else np.asarray(unc, float)
+    fail_f = fail + 2.0 * u
+    verdict, i = grade(d, warn + 2.0 * u, fail_f)
     value = float(d[i])
-    verdict = _grade(value, warn, fail)
-    msg = (ok_msg if verdict is Verdict.PASS else bad_msg).format(v=value, f=_ghz(f_hz[i]))
-    return _result(name, verdict, value, fail, f_hz[i], msg)
+    msg = (ok_msg if verdict is Verdict.PASS else bad_msg).format(
+        v=value, f=_ghz(f_hz[i]), lim=float(fail_f[i]), how=describe(fail, 2, unc))
+    return _result(name, verdict, value, float(fail_f[i]), f_hz[i], msg)
 
 
-def reciprocity(f_hz: np.ndarray, s: np.ndarray, limits: Limits) -> CheckResult:
-    """max over frequency of |S21 - S12| (linear); a passive site is reciprocal (S = S^T)."""
+def reciprocity(f_hz: np.ndarray, s: np.ndarray, limits: Limits, unc: np.ndarray | None = None) -> CheckResult:
+    """|S21 - S12| (linear) per frequency against ``reciprocity_fail`` + 2 u(f);
+    a passive site is reciprocal (S = S^T)."""
     if s.shape[1] < 2:
         return _na("reciprocity", "a 1-port has nothing to compare")
     return _pair_difference(
-        "reciprocity", f_hz, s[:, 1, 0], s[:, 0, 1], limits.reciprocity_warn, limits.reciprocity_fail,
-        "reciprocal: max |S21 - S12| = {v:.4f} at {f}",
-        "not reciprocal: |S21 - S12| = {v:.4f} at {f} (ports swapped, switch terms or calibration)",
+        "reciprocity", f_hz, s[:, 1, 0], s[:, 0, 1], limits.reciprocity_warn, limits.reciprocity_fail, unc,
+        "reciprocal: max |S21 - S12| = {v:.4f} at {f} (allowed {how})",
+        "not reciprocal: |S21 - S12| = {v:.4f} at {f}, allowed {lim:.4g} there "
+        "(ports swapped, switch terms or calibration)",
     )
 
 
-def symmetry(f_hz: np.ndarray, s: np.ndarray, limits: Limits) -> CheckResult:
-    """max over frequency of |S11 - S22| (linear), for sites that are the same seen from both ports."""
+def symmetry(f_hz: np.ndarray, s: np.ndarray, limits: Limits, unc: np.ndarray | None = None) -> CheckResult:
+    """|S11 - S22| (linear) per frequency against ``symmetry_fail`` + 2 u(f), for
+    sites that are the same seen from both ports."""
     if s.shape[1] < 2:
         return _na("symmetry", "a 1-port has nothing to compare")
     return _pair_difference(
-        "symmetry", f_hz, s[:, 0, 0], s[:, 1, 1], limits.symmetry_warn, limits.symmetry_fail,
-        "both ports agree: max |S11 - S22| = {v:.4f} at {f}",
-        "the ports disagree: |S11 - S22| = {v:.4f} at {f} (one bad tip or a skated ground)",
+        "symmetry", f_hz, s[:, 0, 0], s[:, 1, 1], limits.symmetry_warn, limits.symmetry_fail, unc,
+        "both ports agree: max |S11 - S22| = {v:.4f} at {f} (allowed {how})",
+        "the ports disagree: |S11 - S22| = {v:.4f} at {f}, allowed {lim:.4g} there "
+        "(one bad tip or a skated ground)",
     )
 
 
@@ -488,13 +513,17 @@ def line_window(
 # ---------------------------------------------------------------- repeatability and drift
 
 
-def _compare(name, f_hz, s, f_other, s_other, floor_db, lims, against) -> CheckResult:
-    """Largest |dS| (linear), |d dB| and |d phase| (degrees) between two sweeps of
-    the same site; dB and phase only where both |S| exceed ``floor_db``.
+def _compare(name, f_hz, s, f_other, s_other, floor_db, lims, against, unc=None) -> CheckResult:
+    """|dS| (linear), |d dB| and |d phase| (degrees) per frequency between two
+    sweeps of the same site, worst S_ij at each point, graded per frequency with
+    :func:`probelog.limits.grade`; dB and phase only where both |S| exceed
+    ``floor_db``; the |dS| limits widen by u(f), the cal's uncertainty (what
+    does not cancel between two sweeps corrected with the same cal).
     ``lims`` = (db_warn, db_fail, deg_warn, deg_fail, mag_warn, mag_fail)."""
     if s.shape != s_other.shape or not np.allclose(f_hz, f_other, rtol=1e-9, atol=0.0):
         return _na(name, f"{against} was taken on another frequency grid or port count: not compared")
     db_w, db_f, deg_w, deg_f, mag_w, mag_f = lims
+    u = np.zeros(len(f_hz)) if unc is None else np.asarray(unc, float)
     floor = 10.0 ** (floor_db / 20.0)
     big = (np.abs(s) > floor) & (np.abs(s_other) > floor)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -502,12 +531,19 @@ def _compare(name, f_hz, s, f_other, s_other, floor_db, lims, against) -> CheckR
         d_db = np.where(big, np.abs(_db(s) - _db(s_other)), 0.0)
         d_deg = np.where(big, np.abs(np.degrees(np.angle(s / s_other))), 0.0)
     parts = []
-    for arr, warn, fail, unit, label in ((d_db, db_w, db_f, "dB", "|S| in dB"), (d_deg, deg_w, deg_f, "deg", "phase"),
-                                         (d_mag, mag_w, mag_f, "", "|dS|")):
-        arr = np.where(np.isnan(arr), np.inf, arr)
-        k, i, j = np.unravel_index(int(np.argmax(arr)), arr.shape)
-        v = float(arr[k, i, j])
-        parts.append((_grade(v, warn, fail).rank, v / fail, v, fail, f_hz[k], f"S{i + 1}{j + 1}", unit, label))
+    n = len(f_hz)
+    for arr, warn, fail, unit, label in ((d_db, db_w, db_f, "dB", "|S| in dB"),
+                                         (d_deg, deg_w, deg_f, "deg", "phase"),
+                                         (d_mag, mag_w + u, mag_f + u, "", "|dS|")):
+        flat = np.where(np.isnan(arr), np.inf, arr).reshape(n, -1)
+        per_f = flat.max(axis=1)
+        which = flat.argmax(axis=1)
+        verdict, k = grade(per_f, warn, fail)
+        fail_k = float(np.broadcast_to(fail, (n,))[k])
+        ij = int(which[k])
+        i, j = divmod(ij, s.shape[2])
+        parts.append((verdict.rank, per_f[k] / fail_k, float(per_f[k]), fail_k, f_hz[k], f"S{i + 1}{j + 1}",
+                      unit, label))
     text = ", ".join(f"{p[7]} {p[2]:.3g}{' ' + p[6] if p[6] else ''} ({p[5]} at {_ghz(p[4])})" for p in parts)
     rank, _, value, limit, at, _, unit, _ = max(parts, key=lambda p: (p[0], p[1]))
     verdict = {1: Verdict.PASS, 2: Verdict.WARN, 3: Verdict.FAIL}[rank]
@@ -515,20 +551,22 @@ def _compare(name, f_hz, s, f_other, s_other, floor_db, lims, against) -> CheckR
     return _result(name, verdict, value, limit, at, f"{lead} {against}: largest {text}", unit)
 
 
-def repeatability(f_hz, s, f_prev, s_prev, limits: Limits) -> CheckResult:
-    """Difference to the previous landing on the same site (skating, worn tips)."""
+def repeatability(f_hz, s, f_prev, s_prev, limits: Limits, unc: np.ndarray | None = None,
+                  against: str = "the previous landing") -> CheckResult:
+    """Difference to the last accepted landing on the same site (skating, worn
+    tips); ``against`` names that landing in the message."""
     lims = (limits.repeat_db_warn, limits.repeat_db_fail, limits.repeat_deg_warn, limits.repeat_deg_fail,
             limits.repeat_mag_warn, limits.repeat_mag_fail)
     return _compare("repeatability", np.asarray(f_hz, float), s, np.asarray(f_prev, float), s_prev,
-                    limits.repeat_floor_db, lims, "the previous landing")
+                    limits.repeat_floor_db, lims, against, unc)
 
 
-def drift(f_hz, s, f_ref, s_ref, limits: Limits) -> CheckResult:
+def drift(f_hz, s, f_ref, s_ref, limits: Limits, unc: np.ndarray | None = None) -> CheckResult:
     """Difference to the reference sweep of this site taken right after calibration."""
     lims = (limits.drift_db_warn, limits.drift_db_fail, limits.drift_deg_warn, limits.drift_deg_fail,
             limits.drift_mag_warn, limits.drift_mag_fail)
     return _compare("drift", np.asarray(f_hz, float), s, np.asarray(f_ref, float), s_ref,
-                    limits.repeat_floor_db, lims, "the reference taken after calibration")
+                    limits.repeat_floor_db, lims, "the reference taken after calibration", unc)
 
 
 # ---------------------------------------------------------------- all checks of a kind
@@ -542,29 +580,49 @@ def is_symmetric(kind: str, expectation: Mapping[str, Any] | None) -> bool:
     return kind != "device"
 
 
-def run_checks(ntwk, kind: str, limits: Limits, expectation: dict | None = None, previous=None, reference=None) -> list[CheckResult]:
+def run_checks(ntwk, kind: str, limits: Limits, expectation: dict | None = None, previous=None, reference=None,
+               *, unc: np.ndarray | None = None, previous_label: str = "the previous landing",
+               history=None, raw=None, raw_open=None, raw_short=None) -> list[CheckResult]:
     """Every check that applies to ``kind`` on one sweep (an ``skrf.Network``).
 
-    ``previous`` and ``reference`` are Networks of the same site (previous
-    landing; reference right after calibration) or None. Order follows
-    :data:`CHECK_NAMES`.
+    ``previous`` and ``reference`` are Networks of the same site (the last
+    ACCEPTED landing, named by ``previous_label``; the reference right after
+    calibration) or None. ``unc`` (n_freq,) is the cal's uncertainty per frequency
+    (linear |S|, :func:`probelog.limits.cal_uncertainty`); ``history`` the
+    (label, f_hz, s) of the accepted landings of this site on earlier dies
+    (:mod:`probelog.population`); ``raw``, ``raw_open``, ``raw_short`` the raw
+    sweep and the active cal's raw open and short (:mod:`probelog.contact`):
+    when given, contact is the worse of the physics verdict on raw data and the
+    kind signature on the corrected sweep. Order follows :data:`CHECK_NAMES`.
     """
     if kind not in KINDS:
         raise ValueError(f"unknown site kind '{kind}' (known: {', '.join(KINDS)})")
     expectation = expectation or {}
     f, s = np.asarray(ntwk.f, dtype=float), ntwk.s
     z0 = float(np.real(np.asarray(ntwk.z0).flat[0]))
-    out = [contact(f, s, kind, limits, expectation, z0), passivity(f, s, limits)]
+    if unc is not None and len(unc) != len(f):
+        unc = None  # uncertainty of another grid says nothing here
+    kind_contact = contact(f, s, kind, limits, expectation, z0)
+    if raw is not None and raw_open is not None and raw_short is not None:
+        from probelog.contact import physics_contact  # contact imports this module
+
+        phys = physics_contact(raw, raw_open, raw_short, kind, expectation, limits)
+        kind_contact = _worst([phys, kind_contact])  # physics first on a tie
+    out = [kind_contact, passivity(f, s, limits, unc)]
     if ntwk.nports >= 2:
-        out.append(reciprocity(f, s, limits))
+        out.append(reciprocity(f, s, limits, unc))
         if is_symmetric(kind, expectation):
-            out.append(symmetry(f, s, limits))
+            out.append(symmetry(f, s, limits, unc))
     if kind in ROTATING_KINDS:
         out.append(rotation(f, s, limits))
     if kind == "line":
         out.append(line_window(f, s, expectation, limits, z0))
     if previous is not None:
-        out.append(repeatability(f, s, previous.f, previous.s, limits))
+        out.append(repeatability(f, s, previous.f, previous.s, limits, unc, previous_label))
+    if history:
+        from probelog.population import population  # population imports Limits from here
+
+        out.append(population(f, s, history, limits, unc))
     if reference is not None:
-        out.append(drift(f, s, reference.f, reference.s, limits))
+        out.append(drift(f, s, reference.f, reference.s, limits, unc))
     return out
