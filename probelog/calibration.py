@@ -42,6 +42,7 @@ import skrf
 from skrf.calibration import LRRM, SOLT, EightTerm, NISTMultilineTRL, TwelveTerm
 
 from probelog.cal_agreement import Agreement, agreement
+from probelog.cal_guard import guard, refusal
 from probelog.calkit import (
     C0,
     CalibrationError,
@@ -151,6 +152,7 @@ def _skrf_cal(method: str, std: dict[str, skrf.Network], kit: CalKit,
         renorm = {"z0_line": kit.line_z0_ohm, "z0_ref": z0}
     return NISTMultilineTRL([std["thru"], std[refl]] + [std[r] for r in lines],
                             Grefls=[1.0 if refl == "open" else -1.0], l=lengths,
+                            refl_offset=[kit.reflect_offset_um * 1e-6],  # m, negative towards the probes
                             er_est=kit.eps_eff, switch_terms=switch_terms, **renorm)
 
 
@@ -323,8 +325,23 @@ def solve(method: str, measured: Mapping[str, skrf.Network], kit: CalKit,
     if method == "lrrm":
         extras["lrrm_load_l_h"] = float(np.mean(np.real(cal.solved_l)))
     standards = dict(required_sites(method, kit))
-    return CalSet(cal_id=cal_id, method=method, cal=cal, kit_name=kit.name,
-                  standards=standards, extras=extras)
+    calset = CalSet(cal_id=cal_id, method=method, cal=cal, kit_name=kit.name,
+                    standards=standards, extras=extras)
+    # a cal that cannot be right is refused, never used "when solved" (probelog.cal_guard)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        corrected = {role: calset.apply(ntwk) for role, ntwk in std.items()}
+    if method == "mtrl" and kit.reflect_offset_um:
+        # the reflect sits offset_um from the thru centre; at the centre its corrected
+        # reflection carries -2 x offset of line (gain if towards the probes): move it
+        # back to the reflect's own plane with the solved gamma, Gamma e^{2 gamma offset}
+        refl = corrected[kit.mtrl_reflect]
+        shift = np.exp(2.0 * np.asarray(cal.gamma) * kit.reflect_offset_um * 1e-6)
+        refl.s = refl.s * shift[:, None, None]
+    why = refusal(guard(corrected))
+    if why is not None:
+        raise CalibrationError(f"{method}: {why}")
+    return calset
 
 
 # --- verification -----------------------------------------------------------------

@@ -95,6 +95,10 @@ class CalKit:
     line_z0_ohm: float | None = None
     mtrl_reflect: str = "short"
     verification: dict[str, Any] = field(default_factory=dict)
+    reflect_offset_um: float = 0.0
+    thru_loss_db: float = 0.0
+    thru_loss_ref_hz: float = 1e9
+    thru_z0_ohm: float | None = None
     source: str = "<mapping>"
 
     def site_of(self, role: str) -> str | None:
@@ -119,6 +123,10 @@ _TOP_KEYS: dict[str, tuple[type, ...]] = {
     "thru_delay_s": (int, float),
     "line_z0_ohm": (int, float),
     "mtrl_reflect": (str,),
+    "reflect_offset_um": (int, float),
+    "thru_loss_db": (int, float),
+    "thru_loss_ref_hz": (int, float),
+    "thru_z0_ohm": (int, float),
     "sites": (dict,),
     "lines": (dict,),
     "verification": (dict,),
@@ -223,6 +231,10 @@ def kit_from_mapping(d: Mapping[str, Any], source: str = "<mapping>") -> CalKit:
     if reflect not in ("short", "open"):
         raise KitError(f"{at('mtrl_reflect')}: expected \"short\" or \"open\", found {reflect!r}")
     line_z0 = d.get("line_z0_ohm")
+    offset = float(d.get("reflect_offset_um", 0.0))
+    if not math.isfinite(offset):
+        raise KitError(f"{at('reflect_offset_um')}: must be a finite number of um, found {offset!r}")
+    thru_z0 = d.get("thru_z0_ohm")
     return CalKit(
         name=d["name"],
         reference_impedance_ohm=_positive(d["reference_impedance_ohm"], at("reference_impedance_ohm")),
@@ -238,6 +250,10 @@ def kit_from_mapping(d: Mapping[str, Any], source: str = "<mapping>") -> CalKit:
         line_z0_ohm=None if line_z0 is None else _positive(line_z0, at("line_z0_ohm")),
         mtrl_reflect=reflect,
         verification=verification,
+        reflect_offset_um=offset,
+        thru_loss_db=_positive(d.get("thru_loss_db", 0.0), at("thru_loss_db"), allow_zero=True),
+        thru_loss_ref_hz=_positive(d.get("thru_loss_ref_hz", 1e9), at("thru_loss_ref_hz")),
+        thru_z0_ohm=None if thru_z0 is None else _positive(thru_z0, at("thru_z0_ohm")),
         source=source,
     )
 
@@ -285,12 +301,29 @@ def ideal_reflects(kit: CalKit, frequency: skrf.Frequency) -> dict[str, np.ndarr
 
 
 def ideal_thru(kit: CalKit, frequency: skrf.Frequency) -> skrf.Network:
-    """The kit's thru as a matched lossless line with delay ``thru_delay_s``."""
-    s = np.zeros((frequency.npoints, 2, 2), dtype=complex)
-    s21 = np.exp(-2j * np.pi * frequency.f * kit.thru_delay_s)
-    s[:, 0, 1] = s21
-    s[:, 1, 0] = s21
-    return skrf.Network(frequency=frequency, s=s, z0=kit.reference_impedance_ohm, name="thru")
+    """The kit's thru: a line of delay ``thru_delay_s`` with loss ``thru_loss_db``
+    at ``thru_loss_ref_hz`` growing as sqrt(f) (skin effect; Pozar 4th ed. sec. 2.7),
+    and characteristic impedance ``thru_z0_ohm`` (default: the reference, i.e.
+    matched) seen from ports at the reference impedance. With no loss and no
+    thru_z0_ohm it is the matched lossless line S21 = exp(-j w tau)."""
+    f = frequency.f
+    z0 = kit.reference_impedance_ohm
+    alpha_np = kit.thru_loss_db / 8.685889638 * np.sqrt(f / kit.thru_loss_ref_hz)  # nepers, whole thru
+    theta = 2 * np.pi * f * kit.thru_delay_s
+    zc = kit.thru_z0_ohm or z0
+    gl = alpha_np + 1j * theta                      # gamma * length
+    if zc == z0:
+        s = np.zeros((frequency.npoints, 2, 2), dtype=complex)
+        s[:, 0, 1] = s[:, 1, 0] = np.exp(-gl)
+        return skrf.Network(frequency=frequency, s=s, z0=z0, name="thru")
+    # ABCD of a line (Pozar 4th ed. Table 4.1), then S at the reference impedance
+    ch, sh = np.cosh(gl), np.sinh(gl)
+    a, b, c = ch, zc * sh, sh / zc
+    den = a + b / z0 + c * z0 + a
+    s = np.empty((frequency.npoints, 2, 2), dtype=complex)
+    s[:, 0, 0] = s[:, 1, 1] = (b / z0 - c * z0) / den
+    s[:, 0, 1] = s[:, 1, 0] = 2 / den
+    return skrf.Network(frequency=frequency, s=s, z0=z0, name="thru")
 
 
 def ideals(kit: CalKit, frequency: skrf.Frequency) -> dict[str, skrf.Network]:

@@ -418,26 +418,36 @@ def symmetry(f_hz: np.ndarray, s: np.ndarray, limits: Limits, unc: np.ndarray | 
 # ---------------------------------------------------------------- rotation
 
 
-def rotation(f_hz: np.ndarray, s: np.ndarray, limits: Limits) -> CheckResult:
+def rotation(f_hz: np.ndarray, s: np.ndarray, limits: Limits, unc: np.ndarray | None = None) -> CheckResult:
     """Foster's reactance theorem (Foster, Bell Syst. Tech. J. 3, 1924): a
     lossless passive one-port turns clockwise on the Smith chart, so the
     unwrapped phase of Sii falls with frequency. Value: the largest rise of the
-    phase over any span (degrees, counter-clockwise), worst port. Apply to
-    opens, shorts and stubs only."""
+    phase over any span (degrees, counter-clockwise), worst port, graded per
+    frequency against ``rotation_fail_deg`` + 2 asin(u(f) / |Sii(f)|) in degrees
+    (a cal error u moves the phase of a reflection of size |S| by up to
+    asin(u / |S|), at both ends of the span). Apply to opens, shorts and stubs only."""
     f_hz = np.asarray(f_hz, dtype=float)
-    phase = np.degrees(np.unwrap(np.angle(_diag(s)), axis=0))
+    g = _diag(s)
+    phase = np.degrees(np.unwrap(np.angle(g), axis=0))
     rise = phase - np.minimum.accumulate(phase, axis=0)
-    end, port = np.unravel_index(int(np.argmax(rise)), rise.shape)
+    allow = np.zeros(g.shape)
+    if unc is not None:
+        ratio = np.clip(np.asarray(unc, float)[:, None] / np.maximum(np.abs(g), 1e-12), 0.0, 1.0)
+        allow = 2.0 * np.degrees(np.arcsin(ratio))
+    per_port = [grade(rise[:, p], limits.rotation_warn_deg + allow[:, p], limits.rotation_fail_deg + allow[:, p])
+                for p in range(g.shape[1])]
+    port = max(range(g.shape[1]), key=lambda p: (per_port[p][0].rank, rise[per_port[p][1], p]))
+    verdict, end = per_port[port]
     value = float(rise[end, port])
     start = int(np.argmin(phase[: end + 1, port]))
-    verdict = _grade(value, limits.rotation_warn_deg, limits.rotation_fail_deg)
+    fail_at = float(limits.rotation_fail_deg + allow[end, port])
     if verdict is Verdict.PASS:
         msg = f"turns clockwise (largest counter-clockwise excursion {value:.3f} deg)"
     else:
         msg = (f"port {port + 1} turns counter-clockwise by {value:.3f} deg from {_ghz(f_hz[start])} to "
-               f"{_ghz(f_hz[end])}: reference plane beyond the standard, over-specified open C / short L, "
-               "or a coarse frequency step")
-    return _result("rotation", verdict, value, limits.rotation_fail_deg, f_hz[end], msg, "deg")
+               f"{_ghz(f_hz[end])} (allowed {fail_at:.3g} deg there): reference plane beyond the standard, "
+               "over-specified open C / short L, or a coarse frequency step")
+    return _result("rotation", verdict, value, fail_at, f_hz[end], msg, "deg")
 
 
 # ---------------------------------------------------------------- line window
@@ -614,7 +624,7 @@ def run_checks(ntwk, kind: str, limits: Limits, expectation: dict | None = None,
         if is_symmetric(kind, expectation):
             out.append(symmetry(f, s, limits, unc))
     if kind in ROTATING_KINDS:
-        out.append(rotation(f, s, limits))
+        out.append(rotation(f, s, limits, unc))
     if kind == "line":
         out.append(line_window(f, s, expectation, limits, z0))
     if previous is not None:
