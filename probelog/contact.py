@@ -121,7 +121,8 @@ def _kth_ratio(ratio: np.ndarray, k: int) -> tuple[float, int]:
     return float(ratio[i]), i
 
 
-def _reads_like(f, d, allow, judge_max, what, port, label, kind):
+def _reads_like(f: np.ndarray, d: np.ndarray, allow: np.ndarray, judge_max: float, what: str, port: int,
+                label: str, kind: str) -> CheckResult | None:
     """FAIL when the port stays within the allowance of ``what`` (open/short) at
     all but fewer than k judged points; PASS otherwise; None if nothing judged."""
     judged = allow <= judge_max
@@ -148,7 +149,8 @@ def _reads_like(f, d, allow, judge_max, what, port, label, kind):
         "x allowance")
 
 
-def _low_side(f, d_open, d_short, n_low, port, label, kind, want):
+def _low_side(f: np.ndarray, d_open: np.ndarray, d_short: np.ndarray, n_low: int, port: int, label: str,
+              kind: str, want: str) -> CheckResult | None:
     """At the lowest points a short structure must read as ``want`` (open or short):
     FAIL when it is closer to the other standard at most of them."""
     wrong = d_open < d_short if want == "short" else d_short < d_open
@@ -187,7 +189,7 @@ def _stub_too_short(expect: Mapping[str, Any], limits: Limits, z0: float) -> boo
     return c_eq < 2.0 * limits.contact_open_dc_f
 
 
-def _transmission(f, s, mask_low, limits) -> CheckResult:
+def _transmission(f: np.ndarray, s: np.ndarray, mask_low: np.ndarray, limits: Limits) -> CheckResult:
     t = 20.0 * np.log10(np.maximum(np.abs(np.stack([s[mask_low, 1, 0], s[mask_low, 0, 1]])), 1e-15))
     which, i = np.unravel_index(int(np.argmin(t)), t.shape)
     worst, at = float(t[which, i]), float(f[mask_low][i])

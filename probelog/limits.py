@@ -91,7 +91,8 @@ def widen(u: np.ndarray, width: int = 1) -> np.ndarray:
         return u
     padded = np.pad(u, width, mode="edge")
     windows = np.lib.stride_tricks.sliding_window_view(padded, 2 * width + 1)
-    return windows.max(axis=1)
+    out: np.ndarray = windows.max(axis=1)
+    return out
 
 
 def verification_residual(corrected: np.ndarray, ideal: np.ndarray) -> np.ndarray:
