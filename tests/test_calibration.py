@@ -287,4 +287,6 @@ def test_thru_checks_catch_a_wrong_thru_delay(bench, standards):
     r = {x.name: x for x in verify(cal.apply(bench.raw(open_stub_pair())),
                                    cal.apply(standards["cal-thru"]), long_kit)}
     assert r["ver-thru-delay"].verdict is Verdict.FAIL
-    assert r["ver-thru-delay"].value == pytest.approx(1.0, abs=1e-6)  # ps
+    # SOLT reproduces the kit thru; the demo thru is a 51-ohm line, whose S21 phase
+    # departs from w tau by ~1e-4 ps of fitted delay (its mismatch), hence 1e-3 ps
+    assert r["ver-thru-delay"].value == pytest.approx(1.0, abs=1e-3)  # ps
