@@ -307,7 +307,10 @@ def contact(
     f_hz = np.asarray(f_hz, dtype=float)
     gamma = _diag(s)
     if kind == "open":
-        return _na("contact", "cannot judge contact on an open: tips in air also read as an open")
+        # a tip in the air reads like an open too (probelog.contact judges it on raw data);
+        # what the corrected sweep can tell is an open that reads as a short
+        return _reads_as(f_hz, gamma, want_short=False) or _na(
+            "contact", "reads as an open; a tip in the air would too (judged from raw data and earlier landings)")
     if kind == "device":
         return _na("contact", "no generic reflection signature for a device: judge contact on a reference site")
     if kind == "short":
@@ -453,71 +456,95 @@ def rotation(f_hz: np.ndarray, s: np.ndarray, limits: Limits, unc: np.ndarray | 
 # ---------------------------------------------------------------- line window
 
 
-def line_window(
+_WINDOW_QUANTITIES = (  # key, name, unit, plan key
+    ("z0_re_ohm", "Re Z0", "ohm", "z0_window_ohm"),
+    ("alpha_db_per_mm", "loss", "dB/mm", "alpha_db_per_mm_max"),
+    ("eps_eff", "eps_eff", "", "eps_eff_window"),
+)
+
+
+def line_window_figures(
     f_hz: np.ndarray, s: np.ndarray, expectation: Mapping[str, Any], limits: Limits, z0_ref: float = 50.0
-) -> CheckResult:
-    """Re(Z0) (ohm), alpha (dB/mm) and eps_eff from :func:`probelog.lines.metrics_from_s`
-    inside the plan's windows (``z0_window_ohm``, ``alpha_db_per_mm_max``,
-    ``eps_eff_window``) at every frequency of ``window_band_hz`` (Hz; default the
-    whole sweep), skipping points within
-    |sinh(gamma l)| < ``line_min_sinh`` of a half-wavelength. Reports the window
-    missed by the most (relative to its size), or the closest call."""
-    if s.shape[1] < 2:
-        return _na("line-window", "line metrics need a 2-port sweep")
-    length_um = expectation.get("length_um")
-    if length_um is None:
-        return _na("line-window", "no length_um for this site: line metrics not judged")
-    windows = []
-    if "z0_window_ohm" in expectation:
-        lo, hi = (float(x) for x in expectation["z0_window_ohm"])
-        windows.append(("Re Z0", "ohm", lo, hi))
-    if "eps_eff_window" in expectation:
-        lo, hi = (float(x) for x in expectation["eps_eff_window"])
-        windows.append(("eps_eff", "", lo, hi))
-    if "alpha_db_per_mm_max" in expectation:
-        windows.append(("alpha", "dB/mm", 0.0, float(expectation["alpha_db_per_mm_max"])))
-    if not windows:
-        return _na("line-window", "no window for this site in the plan")
+) -> dict[str, dict[str, Any]]:
+    """Each windowed quantity of a line, named with its unit and both bounds:
+    ``{key: {"quantity", "unit", "lo", "hi", "value", "at_hz", "inside"}}`` for
+    Re Z0 (ohm), loss (alpha, dB/mm, low bound 0) and eps_eff, over the points of
+    ``window_band_hz`` away from a half-wavelength (|sinh(gamma l)| >=
+    ``line_min_sinh``). ``value`` is the point that misses the window by most
+    (relative to its size) or, when all are inside, the closest call. Empty when
+    the sweep is not a 2-port, there is no length_um, no window or no usable point."""
+    if s.shape[1] < 2 or expectation.get("length_um") is None:
+        return {}
+    wanted = [(k, n, u, pk) for k, n, u, pk in _WINDOW_QUANTITIES if expectation.get(pk) is not None]
+    if not wanted:
+        return {}
     eps_guess = None
-    if "eps_eff_window" in expectation:
+    if expectation.get("eps_eff_window") is not None:
         eps_guess = 0.5 * sum(float(x) for x in expectation["eps_eff_window"])
-    length_m = float(length_um) * 1e-6
+    length_m = float(expectation["length_um"]) * 1e-6
+    f_hz = np.asarray(f_hz, dtype=float)
     with np.errstate(all="ignore"):
         m = metrics_from_s(f_hz, s, length_m, eps_guess, z0_ref)
         usable = np.abs(np.sinh(m.gamma * length_m)) >= limits.line_min_sinh
     if expectation.get("window_band_hz") is not None:
         # single-line figures carry the pads, whose effect grows with frequency:
         # the plan says where its windows mean something
-        lo, hi = (float(x) for x in expectation["window_band_hz"])
-        usable &= (np.asarray(f_hz) >= lo) & (np.asarray(f_hz) <= hi)
+        lo_b, hi_b = (float(x) for x in expectation["window_band_hz"])
+        usable &= (f_hz >= lo_b) & (f_hz <= hi_b)
     if not usable.any():
-        return _na("line-window", "no frequency point inside the plan's band and away from a half-wavelength resonance")
-    figures = {"Re Z0": m.z0.real, "eps_eff": m.eps_eff, "alpha": m.alpha_db_per_mm}
-    best = None  # (margin relative to window size, name, unit, value, limit, f)
-    f_use = np.asarray(f_hz, dtype=float)[usable]
-    for name, unit, lo, hi in windows:
-        x = figures[name][usable]
-        x = np.where(np.isfinite(x), x, np.inf)
-        below, above = lo - x, x - hi  # > 0 means outside
-        size = max(hi - lo, 1e-30)
-        if name == "alpha":
-            below = np.full_like(x, -np.inf)
-        i_lo, i_hi = int(np.argmax(below)), int(np.argmax(above))
-        if below[i_lo] >= above[i_hi]:
-            cand = (below[i_lo] / size, name, unit, x[i_lo], lo, f_use[i_lo], lo, hi)
+        return {}
+    values = {"z0_re_ohm": m.z0.real, "alpha_db_per_mm": m.alpha_db_per_mm, "eps_eff": m.eps_eff}
+    f_use = f_hz[usable]
+    out: dict[str, dict[str, Any]] = {}
+    for key, name, unit, plan_key in wanted:
+        if key == "alpha_db_per_mm":
+            lo, hi = 0.0, float(expectation[plan_key])
         else:
-            cand = (above[i_hi] / size, name, unit, x[i_hi], hi, f_use[i_hi], lo, hi)
-        if best is None or cand[0] > best[0]:
-            best = cand
-    margin, name, unit, value, limit, at, lo, hi = best
-    u = f" {unit}" if unit else ""
-    window = f"<= {hi:.4g}{u}" if name == "alpha" else f"{lo:.4g}..{hi:.4g}{u}"
-    if margin > 0:
-        return _result("line-window", Verdict.FAIL, value, limit, at,
-                       f"{name} = {value:.4g}{u} at {_ghz(at)} is outside the window {window}: "
-                       "wrong site, damaged line or wrong calibration", unit)
-    return _result("line-window", Verdict.PASS, value, limit, at,
-                   f"inside the plan's windows (closest: {name} = {value:.4g}{u} at {_ghz(at)}, window {window})", unit)
+            lo, hi = (float(x) for x in expectation[plan_key])
+        x = values[key][usable]
+        x = np.where(np.isfinite(x), x, np.inf)
+        miss = np.maximum(lo - x, x - hi) / max(hi - lo, 1e-30)  # > 0 outside, relative to the window
+        i = int(np.argmax(miss))
+        out[key] = {"quantity": name, "unit": unit, "lo": lo, "hi": hi,
+                    "value": float(x[i]) if np.isfinite(x[i]) else None, "at_hz": float(f_use[i]),
+                    "inside": bool(miss[i] <= 0), "miss": float(miss[i])}
+    return out
+
+
+def line_window(
+    f_hz: np.ndarray, s: np.ndarray, expectation: Mapping[str, Any], limits: Limits, z0_ref: float = 50.0
+) -> CheckResult:
+    """Re(Z0) (ohm), loss (dB/mm) and eps_eff from :func:`probelog.lines.metrics_from_s`
+    inside the plan's windows (``z0_window_ohm``, ``alpha_db_per_mm_max``,
+    ``eps_eff_window``) at every frequency of ``window_band_hz`` (Hz; default the
+    whole sweep), skipping points near a half-wavelength. The figure is the
+    quantity that misses its window by most (relative to the window's size), or
+    the closest call; the message names every quantity with unit and both bounds
+    (:func:`line_window_figures`)."""
+    if s.shape[1] < 2:
+        return _na("line-window", "line metrics need a 2-port sweep")
+    if expectation.get("length_um") is None:
+        return _na("line-window", "no length_um for this site: line metrics not judged")
+    if not any(expectation.get(pk) is not None for _, _, _, pk in _WINDOW_QUANTITIES):
+        return _na("line-window", "no window for this site in the plan")
+    figs = line_window_figures(f_hz, s, expectation, limits, z0_ref)
+    if not figs:
+        return _na("line-window", "no frequency point inside the plan's band and away from a half-wavelength resonance")
+
+    def text(d: dict[str, Any]) -> str:
+        u = f" {d['unit']}" if d["unit"] else ""
+        v = "not finite" if d["value"] is None else f"{d['value']:.4g}{u}"
+        return f"{d['quantity']} {v} at {_ghz(d['at_hz'])} (window {d['lo']:.4g}..{d['hi']:.4g}{u})"
+
+    worst = max(figs.values(), key=lambda d: d["miss"])
+    limit = worst["lo"] if worst["value"] is not None and worst["value"] < worst["lo"] else worst["hi"]
+    all_text = "; ".join(text(d) for d in figs.values())
+    if worst["miss"] > 0:
+        return _result("line-window", Verdict.FAIL, worst["value"], limit, worst["at_hz"],
+                       f"outside the window: {text(worst)}: wrong site, damaged line or wrong calibration "
+                       f"[{all_text}]", worst["unit"])
+    return _result("line-window", Verdict.PASS, worst["value"], limit, worst["at_hz"],
+                   f"inside the plan's windows: {all_text}", worst["unit"])
 
 
 # ---------------------------------------------------------------- repeatability and drift

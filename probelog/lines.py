@@ -264,6 +264,22 @@ def to_json(metrics: LineMetrics) -> dict[str, list[float | None]]:
     return {k: _jsonable(v) for k, v in _columns(metrics, slice(None)).items()}
 
 
+def valid_points(metrics: LineMetrics, length_m: float, min_sinh: float = 0.1, min_deg: float = 30.0) -> np.ndarray:
+    """Points where single-line figures mean something (bool, (n_freq,)): the
+    electrical length beta l is at least ``min_deg`` degrees (below it the phase
+    is too small to give eps_eff and loss; common practice, no source) and the
+    line is away from a half-wavelength, |sinh(gamma l)| >= ``min_sinh`` (where
+    Z0 = sqrt(B / C) is 0/0). Two-line gamma has no Z0, so only the first rule
+    applies to it (pass ``min_sinh=0``)."""
+    gl = metrics.gamma * length_m
+    with np.errstate(invalid="ignore"):
+        ok = np.degrees(np.abs(gl.imag)) >= min_deg
+        if min_sinh > 0:
+            ok &= np.abs(np.sinh(gl)) >= min_sinh
+    out: np.ndarray = ok & np.isfinite(metrics.gamma)
+    return out
+
+
 # Round frequencies engineers quote line figures at (Hz); common practice, no source.
 ROUND_HZ = np.array([1, 5, 10, 20, 40, 67, 110, 170, 220, 325, 500]) * 1e9
 

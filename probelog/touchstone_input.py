@@ -10,7 +10,9 @@ otherwise report without a line or silently reorder.
 from __future__ import annotations
 
 import math
+import os
 import re
+import stat
 import warnings
 from pathlib import Path
 
@@ -24,6 +26,10 @@ class TouchstoneInputError(ValueError):
 
 
 _EXT = re.compile(r"\.s(\d+)p$", re.IGNORECASE)
+
+# Largest file read: a 4-port of 100,001 points in RI is ~40 MB of text; common practice, no source
+MAX_BYTES = 64 * 1024 * 1024
+_V2_COUNT = re.compile(r"^\s*\[number of frequencies\]\s+(\S+)", re.IGNORECASE | re.MULTILINE)
 
 
 def _one_line(text: str) -> str:
@@ -72,19 +78,34 @@ def _prescan(path: Path, text: str, nports: int) -> None:
 def load_touchstone(path: str | Path) -> skrf.Network:
     """Read and validate a Touchstone file (v1 ``.sNp`` or v2).
 
-    Refuses: a missing or unreadable file, a name without an .sNp extension that
-    is not v2, data scikit-rf cannot parse, NaN or infinite values, frequencies
-    that are not strictly increasing, and an empty sweep.
+    Refuses: a missing or unreadable file, anything but a regular file (a FIFO,
+    a device), a file past ``MAX_BYTES``, a UTF-8 byte-order mark, a name without
+    an .sNp extension that is not v2, data scikit-rf cannot parse, NaN or infinite
+    values, frequencies that are not strictly increasing or not above 0 Hz, a
+    reference impedance not above 0 ohm, an empty or one-point sweep, and a v2
+    ``[Number of Frequencies]`` that disagrees with the data.
     """
     path = Path(path)
     try:
-        raw = path.read_bytes()
+        st = os.stat(path)  # before opening: reading a FIFO or a device would block or never end
     except FileNotFoundError:
         raise TouchstoneInputError(f"{path}: no such file") from None
-    except IsADirectoryError:
-        raise TouchstoneInputError(f"{path}: is a folder, not a Touchstone file") from None
     except OSError as exc:
         raise TouchstoneInputError(f"{path}: cannot read ({_one_line(exc.strerror or exc)})") from None
+    if stat.S_ISDIR(st.st_mode):
+        raise TouchstoneInputError(f"{path}: is a folder, not a Touchstone file")
+    if not stat.S_ISREG(st.st_mode):
+        raise TouchstoneInputError(f"{path}: not a regular file (a pipe, socket or device), not a Touchstone file")
+    if st.st_size > MAX_BYTES:
+        raise TouchstoneInputError(f"{path}: {st.st_size / 1e6:.0f} MB is past the {MAX_BYTES / 1e6:.0f} MB "
+                                   "a Touchstone sweep can sensibly be")
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise TouchstoneInputError(f"{path}: cannot read ({_one_line(exc.strerror or exc)})") from None
+    if raw.startswith(b"\xef\xbb\xbf"):
+        raise TouchstoneInputError(f"{path}: starts with a UTF-8 byte-order mark, which Touchstone does not "
+                                   "allow; save it as plain ASCII / UTF-8 without BOM")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError:
@@ -106,6 +127,15 @@ def load_touchstone(path: str | Path) -> skrf.Network:
             ntwk = skrf.Network(str(path))
     except Exception as exc:  # scikit-rf raises many types for bad content; all are bad input here
         raise TouchstoneInputError(f"{path}: malformed Touchstone data ({_one_line(exc) or type(exc).__name__})") from None
+    if is_v2 and (m2 := _V2_COUNT.search(text)) is not None:
+        try:
+            declared = int(m2.group(1))
+        except ValueError:
+            raise TouchstoneInputError(f"{path}: [Number of Frequencies] '{m2.group(1)}' is not a whole number") from None
+        if declared != len(ntwk.f):
+            line = text.count("\n", 0, m2.start()) + 1
+            raise TouchstoneInputError(f"{path}: line {line}: [Number of Frequencies] says {declared}, "
+                                       f"the data holds {len(ntwk.f)} points")
     return validate_network(ntwk, path)
 
 
@@ -117,6 +147,14 @@ def validate_network(ntwk: skrf.Network, path: str | Path) -> skrf.Network:
     f = np.asarray(ntwk.f, dtype=float)
     if f.size == 0:
         raise TouchstoneInputError(f"{path}: no frequency points")
+    if f.size == 1:
+        raise TouchstoneInputError(f"{path}: one frequency point ({f[0] / 1e9:.6g} GHz); a sweep needs at least two")
+    if not f[0] > 0:
+        raise TouchstoneInputError(f"{path}: frequency {f[0]:g} Hz (point 1) is not above 0 Hz")
+    z0 = np.asarray(ntwk.z0)
+    if not (np.isfinite(z0).all() and (z0.real > 0).all()):
+        bad_z = z0.flat[int(np.argmax(~(np.isfinite(z0) & (z0.real > 0))))]
+        raise TouchstoneInputError(f"{path}: reference impedance {bad_z.real:g} ohm is not above 0 ohm")
     bad = ~np.isfinite(ntwk.s).all(axis=(1, 2))
     if bad.any():
         i = int(np.argmax(bad))

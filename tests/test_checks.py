@@ -75,10 +75,13 @@ def test_limits_override_and_reject_unknown_keys():
 # ---------------------------------------------------------------- contact
 
 
-def test_contact_on_open_is_not_judged(f, med):
+def test_contact_on_open_tip_in_air_not_told_a_short_checked_as_open_fails(f, med):
     r = contact(f.f, pair(med.open()).s, "open", LIM)
     check(r, Verdict.NA, "contact")
-    assert "cannot judge" in r.message
+    assert "tip in the air would too" in r.message
+    r = contact(f.f, pair(med.short()).s, "open", LIM)  # skrf media short: S = -1
+    check(r, Verdict.FAIL, "contact")
+    assert "should read as a open" in r.message or "reads as a short" in r.message
     check(contact(f.f, med.line(1e-3, "m").s, "device", LIM), Verdict.NA, "contact")
 
 

@@ -121,8 +121,8 @@ def test_short_open_stub_is_not_judged_long_one_is(std150):
 
 @pytest.fixture(scope="module")
 def bench():
-    from drivers.simbench.chip import load_chip
-    from drivers.simbench.simulator import Simulator
+    from probelog.drivers.simbench.chip import load_chip
+    from probelog.drivers.simbench.simulator import Simulator
     from probelog.plan import load_plan
 
     plan = load_plan(Path(__file__).parents[1] / "probelog" / "plans" / "demo.toml")

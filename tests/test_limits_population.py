@@ -83,9 +83,9 @@ def test_reciprocity_limit_is_per_frequency():
 
 @pytest.fixture(scope="module")
 def dies():
-    from drivers.simbench.chip import load_chip
-    from drivers.simbench.faults import apply_contact_faults
-    from drivers.simbench.simulator import Simulator
+    from probelog.drivers.simbench.chip import load_chip
+    from probelog.drivers.simbench.faults import apply_contact_faults
+    from probelog.drivers.simbench.simulator import Simulator
 
     sim = Simulator(load_chip(), seed=4)
     f = np.linspace(1e9, 110e9, 201)

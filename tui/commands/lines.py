@@ -6,6 +6,10 @@ import argparse
 import json
 import sys
 
+# Largest |S21| that still is no line: a lifted tip or a reflect pair leaves -40 dB or lower
+# (trade numbers); the lossiest on-wafer line of a sweep passes more than -30 dB somewhere
+TRANSMIT_MIN = 10 ** (-30 / 20)
+
 HELP = "line metrics (Z0, loss, eps_eff, RLGC) of a measured line, or pad-free gamma from two lines"
 
 COLUMNS = (  # (JSON key, heading, scale, format)
@@ -38,14 +42,18 @@ def _cell(x: float | None, scale: float, fmt: str) -> str:
 
 
 def _table(title: str, small: dict, note: str | None) -> None:
-    """One row per quantity, one column per frequency: fits 80 columns."""
+    """One row per quantity, one column per frequency: fits 80 columns. A column
+    outside the valid band is marked with '*' and explained in the caption."""
     from rich.console import Console
     from rich.table import Table
 
+    if not all(small["valid"]):
+        note = (note + "; " if note else "") + ("* outside the valid band (under 30 deg of electrical length "
+                                                "or near a half-wavelength): figures not to be trusted")
     table = Table(title=title, title_justify="left", caption=note, caption_justify="left")
     table.add_column("")
-    for f in small["f_hz"]:
-        table.add_column(f"{f / 1e9:.4g} GHz", justify="right")
+    for f, ok in zip(small["f_hz"], small["valid"], strict=True):
+        table.add_column(f"{f / 1e9:.4g} GHz" + ("" if ok else " *"), justify="right")
     for key, heading, scale, fmt in COLUMNS[1:]:
         table.add_row(heading, *(_cell(x, scale, fmt) for x in small[key]))
     Console().print(table)
@@ -54,10 +62,23 @@ def _table(title: str, small: dict, note: str | None) -> None:
 def run(args: argparse.Namespace) -> int:
     import numpy as np
 
-    from probelog.lines import default_frequencies, gamma_two_lines, line_metrics, metrics_at, metrics_from_gamma
+    import math
+
+    from probelog.lines import (
+        default_frequencies,
+        gamma_two_lines,
+        line_metrics,
+        metrics_at,
+        metrics_from_gamma,
+        valid_points,
+    )
     from probelog.touchstone_input import TouchstoneInputError, load_touchstone, require_ports
     from probelog.tui.cli import UsageError
 
+    for name, value in (("--length", args.length), ("--second-length", args.second_length),
+                        ("--eps-eff-guess", args.eps_eff_guess)):
+        if value is not None and not math.isfinite(value):
+            raise UsageError(f"{name} must be a finite number, got {value:g}")
     if not args.length > 0:
         raise UsageError(f"--length must be positive, got {args.length:g}")
     if (args.second is None) != (args.second_length is None):
@@ -79,6 +100,14 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError(str(exc)) from None
     if second is not None and (len(first.f) != len(second.f) or not np.allclose(first.f, second.f, rtol=1e-9)):
         raise UsageError(f"{args.second}: frequency points differ from {args.file}")
+    for path, ntwk in ((args.file, first), (args.second, second)):
+        if ntwk is None:
+            continue
+        # a line transmits: a short or open pair (|S21| at the isolation floor) has no line metrics
+        peak = float(np.max(np.abs(np.stack([ntwk.s[:, 1, 0], ntwk.s[:, 0, 1]]))))
+        if not peak >= TRANSMIT_MIN:
+            raise UsageError(f"{path}: does not transmit (|S21|, |S12| at most {20 * np.log10(max(peak, 1e-15)):.1f} dB, "
+                             f"a line needs more than {20 * np.log10(TRANSMIT_MIN):.0f} dB): not a line")
 
     try:
         with np.errstate(all="ignore"):
@@ -94,6 +123,10 @@ def run(args: argparse.Namespace) -> int:
 
     at = default_frequencies(metrics.f_hz) if args.at is None else np.asarray(args.at) * 1e9
     small = metrics_at(metrics, at)
+    length_m = (args.length if second is None else abs(args.second_length - args.length)) * 1e-3
+    valid = valid_points(metrics, length_m, min_sinh=0.1 if second is None else 0.0)
+    idx = np.abs(metrics.f_hz[None, :] - np.atleast_1d(at)[:, None]).argmin(axis=1)
+    small["valid"] = [bool(v) for v in valid[idx]]
     if args.json:
         out = {"file": args.file, "length_mm": args.length, "method": method,
                "second": args.second, "second_length_mm": args.second_length, **small}
