@@ -1,9 +1,9 @@
 """Run a session without a person at the keyboard.
 
 Policy: calibrate, re-landing a standard whose contact check failed up to
-``retries`` times; redo a calibration whose verification or agreement failed up
-to ``retries`` times, then accept it when it solved (the verdicts stay in the
-journal for the analyst); for every site accept a landing that did not fail, re-land a failed
+``retries`` times; redo a calibration that did not solve, whose standards failed
+contact or whose verification or agreement failed up to ``retries`` times, then
+stop with one line and exit 1 (a cal that cannot be right is never accepted); for every site accept a landing that did not fail, re-land a failed
 one up to ``retries`` times, then give up on it (recorded as failed) and go on.
 Instrument errors are retried the same way. A failed drift check recalibrates
 once per run; later drift failures are only recorded.
@@ -140,16 +140,17 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
                 continue
             if phase is Phase.VERIFYING:
                 pending = engine.pending_cal
-                if pending is None or not pending.ok:
-                    engine.redo_calibration("headless: calibration did not solve")
-                elif pending.verdict is Verdict.FAIL and cal_redos < retries:
-                    cal_redos += 1
-                    engine.redo_calibration("headless: verification or agreement failed; measuring the "
-                                            "standards again")
-                    printer.line(f"cal {pending.cal_id} failed its verification: redo {cal_redos}/{retries}")
-                else:
+                why = engine.cal_refusal(pending)
+                if why is None:
                     cal_redos = 0
-                    engine.accept_calibration("headless: accepted when solved; verdicts on record")
+                    engine.accept_calibration("headless: solved, standards landed, verification passed")
+                elif cal_redos < retries:
+                    cal_redos += 1
+                    engine.redo_calibration(f"headless: {why}")
+                    printer.line(f"{why}: redo {cal_redos}/{retries}")
+                else:  # a cal that cannot be right is never accepted: stop, exit 1
+                    printer.line(f"stopped: {why} (after {cal_redos} redos)")
+                    break
                 continue
             step = engine.next_step
             key = (step.kind, step.die, step.site) if step is not None else None

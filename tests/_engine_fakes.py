@@ -116,8 +116,10 @@ def ideal(kind: str, extra: dict, freq: skrf.Frequency) -> skrf.Network:
         s = np.zeros((len(w), 2, 2), complex)
         s[:, 0, 0] = s[:, 1, 1] = g
         return skrf.Network(frequency=freq, s=s, z0=50)
-    if kind == "thru":  # the kit models the thru as a lossless delay: so does the fake
-        return DefinedGammaZ0(frequency=freq, z0=50.0, gamma=gamma.imag * 1j).line(extra["length_um"], "um")
+    if kind == "thru":  # exactly the kit's thru (a lossy 51-ohm line since issue 10)
+        from probelog.calkit import ideal_thru
+
+        return ideal_thru(_KIT, freq)
     if kind == "line":
         return media.line(extra["length_um"], "um")
     if kind == "device":

@@ -85,6 +85,13 @@ class CalStep(EngineCore):
         # transmission and by how the standard differs from those already measured
         earlier = {r: n for r, n in self._standard_networks_by_role().items() if r != step.standard}
         checks = raw_standard_checks(raw, step.standard, earlier, self.view.limits())
+        if "open" in earlier and "short" in earlier and step.standard not in ("open", "short"):
+            # with the raw open and short in hand, a tip in the air is told from physics too
+            from probelog.contact import physics_contact
+            from probelog.engine.planview import expectation
+
+            checks.append(physics_contact(raw, earlier["open"], earlier["short"], site.kind,
+                                          expectation(site), self.view.limits()))
         verdict = overall(checks)
         suffix = "" if step.landing == 1 else f"-L{step.landing}"
         stem = f"data/cal/{cal_id}/{step.site}{suffix}"
@@ -147,9 +154,33 @@ class CalStep(EngineCore):
         worst = [o.verdict for o in outcome.verification]
         if outcome.agreement:
             worst.append(Verdict(outcome.agreement["verdict"]))
+        # standards that failed contact make a cal that cannot be right, however it solved
+        worst.extend(rec.verdict for rec in self.state.standards.values())
         outcome.verdict = max(worst, key=lambda v: v.rank, default=Verdict.PASS)
         outcome.seq = self._last_seq()
         return outcome
+
+    def cal_refusal(self, outcome: CalOutcome | None) -> str | None:
+        """Why ``outcome`` may not be accepted (one line), or None: it did not
+        solve, a standard failed contact, a verification or the agreement failed."""
+        bad = [f"standard {role} ({rec.site}) failed contact" for role, rec in self.state.standards.items()
+               if rec.verdict is Verdict.FAIL]
+        if outcome is None or not outcome.ok or outcome.calset is None:
+            bad.append("it did not solve")
+            return f"calibration {self._cal_id()} cannot be accepted: {'; '.join(bad)}; redo it"
+        for o in outcome.verification:
+            failed = [c.name for c in o.checks if c.verdict is Verdict.FAIL]
+            if failed:
+                bad.append(f"verification on {o.step.site} failed ({', '.join(failed)})")
+        rec = self.state.pending  # after a resume the outcome carries no verification: the record does
+        if not outcome.verification and rec is not None and rec.cal_id == outcome.cal_id \
+                and Verdict.FAIL in rec.verdicts:
+            bad.append("its verification or agreement failed (on record)")
+        if outcome.agreement and outcome.agreement.get("verdict") == Verdict.FAIL.value:
+            bad.append(f"{outcome.agreement.get('other_method')} disagrees by {outcome.agreement.get('worst'):.3g}")
+        if not bad:
+            return None
+        return f"calibration {outcome.cal_id} cannot be accepted: {'; '.join(bad)}; redo it"
 
     def _verification(self, calset: Any, kit: Any) -> list[LandingOutcome]:
         """Measure every verification site, then judge: the kit's open stub and

@@ -189,10 +189,18 @@ class EngineCore:
     # ------------------------------------------------------------ data
 
     def _checks(self, ntwk: skrf.Network, site: Any, previous: skrf.Network | None = None,
-                reference: skrf.Network | None = None) -> list[CheckResult]:
+                reference: skrf.Network | None = None, evidence: Any = None,
+                raw: skrf.Network | None = None) -> list[CheckResult]:
+        """The checks of ``site``'s kind; ``evidence`` (probelog.engine.evidence) adds
+        physics contact on ``raw``, the cal's uncertainty, the population and the
+        last accepted landing as the repeatability reference."""
         from probelog.checks import run_checks
 
-        return list(run_checks(ntwk, site.kind, self.view.limits(), expectation(site), previous, reference))
+        extra = evidence.kwargs(raw) if evidence is not None else {}
+        if evidence is not None:
+            previous = evidence.previous
+        return list(run_checks(ntwk, site.kind, self.view.limits(), expectation(site), previous, reference,
+                               **extra))
 
     def _header(self, step: Step, what: str) -> dict[str, Any]:
         """The self-describing comment header of a data file."""

@@ -217,8 +217,10 @@ class Engine(Policy):
         with self._busy():
             self._require_phase(Phase.VERIFYING)
             cal = self.pending_cal
-            if cal is None or cal.calset is None:
-                raise EngineError(f"calibration {self._cal_id()} could not be computed; redo it")
+            why = self.cal_refusal(cal)  # did not solve, a standard or the verification failed
+            if why is not None:  # never accepted "when solved" (issue 10)
+                raise EngineError(why)
+            assert cal is not None
             before = self._phase
             e = self._append(ev.CalAccepted(cal_id=cal.cal_id, reason=reason))
             self._active_outcome, self._pending_cal = cal, None

@@ -84,7 +84,10 @@ class Walk(CalStep):
         cor = self._correct(raw)
         use = cor if cor is not None else raw
         site = self.view.site(step.site)
-        checks = self._checks(use, site, previous=self._previous(step.die, step.site))
+        from probelog.engine.evidence import gather
+
+        evidence = gather(self, step.die, step.site, use.f) if cor is not None else None
+        checks = self._checks(use, site, previous=self._previous(step.die, step.site), evidence=evidence, raw=raw)
         metrics = self._metrics(use, site)
         base = f"data/{die_dir(step.die)}/{step.site}/L{step.landing}"
         files = self.store.write_pair(base, raw, cor, self._header(step, "raw"))
