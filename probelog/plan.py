@@ -91,6 +91,8 @@ class Site:
     metal: str | None = None
     note: str = ""
     precheck: "Precheck | None" = None  # None: the plan's [precheck]
+    s21_db_window: tuple[float, float] | None = None  # device: |S21| (dB) it must stay in over s21_band_hz
+    s21_band_hz: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True)
@@ -518,7 +520,7 @@ _TOP = ("plan", "wafer", "site", "sequence", "calibration", "vna", "probes", "li
 _WAFER = ("id", "lot", "chip", "cols", "rows", "die_pitch_um", "skip", "dies", "order")
 _SITE = ("name", "kind", "offset_um", "ports", "symmetric", "length_um", "z0_window_ohm",
          "alpha_db_per_mm_max", "eps_eff_window", "window_band_hz", "line_type", "width_um", "gap_um", "metal", "note",
-         "precheck")
+         "precheck", "s21_db_window", "s21_band_hz")
 _SEQ = ("sites", "drift_site", "drift_die", "drift_every_landings", "recal_every_hours")
 _CAL = ("method", "compare_with", "kit", "die", "standards", "verification")
 _VNA = ("start_hz", "stop_hz", "points", "ifbw_hz", "power_dbm", "power_limit_dbm")
@@ -661,8 +663,26 @@ def _sites(ctx: _Ctx, raw: dict, wafer: Wafer) -> tuple[Site, ...]:
             note=_note(ctx, t, f"{p}.note"),
             # a site's own table overrides only the keys it names, over [precheck]
             precheck=_precheck(ctx, t, f"{p}.precheck", None, _precheck(ctx, raw, "precheck", Precheck())),
+            s21_db_window=_s21_window(ctx, t, p, kind),
+            s21_band_hz=_pair(ctx, t, "s21_band_hz", f"{p}.s21_band_hz", "a band [low, high] in Hz", None,
+                              ordered=True, positive=True),
         ))
+        if out[-1].s21_band_hz is not None and out[-1].s21_db_window is None:
+            raise ctx.error(f"{p}.s21_band_hz", "needs s21_db_window (the |S21| window judged over that band)")
     return tuple(out)
+
+
+def _s21_window(ctx: _Ctx, t: Mapping, p: str, kind: str) -> tuple[float, float] | None:
+    """``s21_db_window``: what a device (or line) must transmit, [low, high] in dB
+    (20 log10 |S21| of the corrected sweep, at most +1 dB: a passive site)."""
+    w = _pair(ctx, t, "s21_db_window", f"{p}.s21_db_window", "a window [low, high] in dB", None, ordered=True)
+    if w is None:
+        return None
+    if kind not in ("device", "thru", "line"):
+        raise ctx.error(f"{p}.s21_db_window", f"a {kind} does not transmit; only device, thru and line sites take it")
+    if w[1] > 1.0:
+        raise ctx.error(f"{p}.s21_db_window", f"high end {w[1]:g} dB is above 0 dB: a passive site cannot gain")
+    return w
 
 
 _PRECHECK = ("enabled", "points", "ifbw_hz")

@@ -8,6 +8,8 @@ model; faults from the simulated bench (drivers/simbench/faults.py).
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 import skrf
@@ -134,3 +136,43 @@ def test_run_checks_carries_population_and_names_the_landing_compared_with(dies)
                                          previous_label="landing 2 of die 4,1")}
     assert out["population"].verdict is Verdict.FAIL
     assert "landing 2 of die 4,1" in out["repeatability"].message
+
+
+# ---------------------------------------------------------------- a device's plan-level statement
+
+
+def test_device_transmission_window_passes_landed_fails_lifted(dies):
+    from probelog.checks import contact
+    from probelog.drivers.simbench.chip import load_chip
+    from probelog.drivers.simbench.faults import apply_contact_faults
+    from probelog.drivers.simbench.simulator import Simulator
+    from probelog.engine.planview import expectation
+    from probelog.plan import load_plan
+
+    plan = load_plan(Path(__file__).parents[1] / "probelog" / "plans" / "demo.toml")
+    sim = Simulator(load_chip(), seed=9)
+    f = np.linspace(1e9, 110e9, 201)
+    for name in ("dev-ind", "dev-mim"):
+        exp = expectation(plan.site(name))
+        for die in ((2, 1), (7, 5)):
+            s = sim.true_s(die, name, f)
+            assert contact(f, s, "device", Limits(), exp).verdict is Verdict.PASS
+            for fault in ("lifted-1", "lifted-2", "lifted"):
+                bad = apply_contact_faults(s, (fault,), sim.model(die), f, die)
+                r = contact(f, bad, "device", Limits(), exp)
+                assert r.verdict is Verdict.FAIL and "the plan expects" in r.message, (name, fault, r.message)
+
+
+@pytest.mark.parametrize("extra,words", [
+    ('s21_db_window = [-3.0, 0.0]\n', "does not transmit"),        # on an open site
+    ('s21_band_hz = [1e9, 2e9]\n', "needs s21_db_window"),
+])
+def test_device_window_plan_keys_are_validated(extra, words):
+    from probelog.plan import PlanError, load_plan_text
+
+    text = (Path(__file__).parents[1] / "probelog" / "plans" / "demo.toml").read_text(encoding="utf-8")
+    text = text.replace('kit = "../kits/plx7.toml"', f'kit = "{(Path(__file__).parents[1] / "probelog" / "kits" / "plx7.toml").as_posix()}"')
+    text = text.replace('note = "open pad pair with fringing capacitance"\n',
+                        'note = "open pad pair with fringing capacitance"\n' + extra)
+    with pytest.raises(PlanError, match=words):
+        load_plan_text(text, "demo-edited.toml")

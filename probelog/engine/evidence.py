@@ -41,9 +41,11 @@ class Evidence:
     history: list[tuple[str, np.ndarray, np.ndarray]] = field(default_factory=list)
     previous: skrf.Network | None = None
     previous_label: str = "the previous landing"
+    previous_other_die: bool = False
 
     def kwargs(self, raw: skrf.Network | None) -> dict[str, Any]:
         return {"unc": self.unc, "history": self.history, "previous_label": self.previous_label,
+                "previous_other_die": self.previous_other_die,
                 "raw": raw if self.raw_open is not None else None,
                 "raw_open": self.raw_open, "raw_short": self.raw_short}
 
@@ -136,4 +138,5 @@ def gather(core: Any, die: Die, site: str, f_hz: np.ndarray) -> Evidence:
     out = Evidence(raw_open=raw_open, raw_short=raw_short, unc=uncertainty(core, f_hz), history=history)
     if last is not None:
         out.previous, out.previous_label = last[2], f"the last accepted landing of the site, {last[1]}"
+        out.previous_other_die = True  # accepted landings of this die's site are never before it
     return out
