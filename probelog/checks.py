@@ -654,7 +654,7 @@ def is_symmetric(kind: str, expectation: Mapping[str, Any] | None) -> bool:
 def run_checks(ntwk, kind: str, limits: Limits, expectation: dict | None = None, previous=None, reference=None,
                *, unc: np.ndarray | None = None, previous_label: str = "the previous landing",
                history=None, raw=None, raw_open=None, raw_short=None,
-               previous_other_die: bool = False) -> list[CheckResult]:
+               previous_other_die: bool = False, population_unc: np.ndarray | None = None) -> list[CheckResult]:
     """Every check that applies to ``kind`` on one sweep (an ``skrf.Network``).
 
     ``previous`` and ``reference`` are Networks of the same site (the last
@@ -663,7 +663,8 @@ def run_checks(ntwk, kind: str, limits: Limits, expectation: dict | None = None,
     (linear |S|, :func:`probelog.limits.cal_uncertainty`); ``history`` the
     (label, f_hz, s) of the accepted landings of this site on earlier dies
     (:mod:`probelog.population`); ``previous_other_die`` caps repeatability at
-    WARN when the reference was landed on another die; ``raw``, ``raw_open``, ``raw_short`` the raw
+    WARN when the reference was landed on another die; ``population_unc`` widens
+    the population's spread (the cal's uncertainty, when the history spans cals); ``raw``, ``raw_open``, ``raw_short`` the raw
     sweep and the active cal's raw open and short (:mod:`probelog.contact`):
     when given, contact is the worse of the physics verdict on raw data and the
     kind signature on the corrected sweep. Order follows :data:`CHECK_NAMES`.
@@ -701,7 +702,8 @@ def run_checks(ntwk, kind: str, limits: Limits, expectation: dict | None = None,
     if history:
         from probelog.population import population  # population imports Limits from here
 
-        out.append(population(f, s, history, limits, unc))
+        pop_unc = population_unc if population_unc is not None and len(population_unc) == len(f) else None
+        out.append(population(f, s, history, limits, pop_unc))
     if reference is not None:
         out.append(drift(f, s, reference.f, reference.s, limits, unc))
     return out

@@ -8,7 +8,9 @@ session state (never from raw journal lines):
   (the corrected verification thru against the kit's thru), for the
   per-frequency limits (:mod:`probelog.limits`);
 - the accepted landings of the site on earlier dies (plain accepts, not
-  accepted-despite-FAIL): the population check (:mod:`probelog.population`);
+  accepted-despite-FAIL): the population check (:mod:`probelog.population`),
+  whose spread takes u(f) only when some of them were corrected with another
+  cal (under one cal its error is common to all and cancels);
 - the LAST ACCEPTED landing of the site under the same cal: the repeatability
   reference, named in its message; a re-landed (rejected) or failed landing is
   never a reference.
@@ -29,6 +31,7 @@ import skrf
 from probelog import events as ev
 from probelog.bench import Die
 from probelog.limits import cal_uncertainty, verification_residual
+from probelog.verdicts import Verdict
 
 
 @dataclass
@@ -42,10 +45,11 @@ class Evidence:
     previous: skrf.Network | None = None
     previous_label: str = "the previous landing"
     previous_other_die: bool = False
+    population_unc: np.ndarray | None = None
 
     def kwargs(self, raw: skrf.Network | None) -> dict[str, Any]:
         return {"unc": self.unc, "history": self.history, "previous_label": self.previous_label,
-                "previous_other_die": self.previous_other_die,
+                "previous_other_die": self.previous_other_die, "population_unc": self.population_unc,
                 "raw": raw if self.raw_open is not None else None,
                 "raw_open": self.raw_open, "raw_short": self.raw_short}
 
@@ -120,10 +124,11 @@ def gather(core: Any, die: Die, site: str, f_hz: np.ndarray) -> Evidence:
     s = core.state
     raw_open, raw_short = raw_open_short(core)
     history = []
+    cals: list[str | None] = []
     last: tuple[int, str, skrf.Network] | None = None
     active_id = s.active.cal_id if s.active is not None else None
     for d, rec in s.accepted_across_dies(site):
-        if tuple(d) == tuple(die) or rec.verdict is ev.Verdict.FAIL:
+        if tuple(d) == tuple(die) or rec.verdict is Verdict.FAIL:
             continue
         decision = s.site(d, site).decision
         if decision is None or decision.action != ev.ACCEPT:  # accepted despite FAIL is no reference
@@ -133,9 +138,14 @@ def gather(core: Any, die: Die, site: str, f_hz: np.ndarray) -> Evidence:
             continue
         ntwk = core.store.network(ref, f"accepted landing of {site} on die {d[0]},{d[1]}")
         history.append((_label(d, rec), np.asarray(ntwk.f, float), ntwk.s))
+        cals.append(rec.cal_id)
         if rec.cal_id == active_id and rec.corrected is not None and (last is None or rec.seq > last[0]):
             last = (rec.seq, _label(d, rec), ntwk)
     out = Evidence(raw_open=raw_open, raw_short=raw_short, unc=uncertainty(core, f_hz), history=history)
+    # landings corrected with the same cal share its error, which cancels in their
+    # difference; only landings under another cal bring the cal's uncertainty along
+    if any(c != active_id for c in cals):
+        out.population_unc = out.unc
     if last is not None:
         out.previous, out.previous_label = last[2], f"the last accepted landing of the site, {last[1]}"
         out.previous_other_die = True  # accepted landings of this die's site are never before it

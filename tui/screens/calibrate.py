@@ -109,9 +109,15 @@ class Calibrate(BenchScreen):
             return True if phase == "CALIBRATING" and self.engine.next_step is not None else None
         if action == "solve":
             return True if phase == "CALIBRATING" and self.engine.next_step is None else None
-        if action in ("accept_cal", "redo_cal"):
+        if action == "accept_cal":  # a cal that cannot be right is never accepted (greyed, with why)
+            return (self._cal_refusal() is None) if phase == "VERIFYING" else None
+        if action == "redo_cal":
             return True if phase == "VERIFYING" else None
         return True
+
+    def _cal_refusal(self) -> str | None:
+        refusal = getattr(self.engine, "cal_refusal", None)
+        return refusal(self.engine.pending_cal) if callable(refusal) else None
 
     def action_measure(self) -> None:
         self.measure_next()
@@ -124,6 +130,10 @@ class Calibrate(BenchScreen):
         self.solve_calibration()
 
     def action_accept_cal(self) -> None:
+        why = self._cal_refusal()
+        if why is not None:
+            self.app.notify(why, severity="error")
+            return
         self.record("cal-accept")
 
     def action_redo_cal(self) -> None:
