@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from enum import Enum
-from typing import Iterable
+from typing import Any, Iterable, Mapping
 
 
 class Verdict(str, Enum):
@@ -37,13 +37,13 @@ class CheckResult:
     message: str
     unit: str = ""
 
-    def to_json(self) -> dict:
+    def to_json(self) -> dict[str, Any]:
         # by hand: dataclasses.asdict deep-copies and is ~10x slower on the landing path
         return {"name": self.name, "verdict": self.verdict.value, "value": self.value,
                 "limit": self.limit, "at_hz": self.at_hz, "message": self.message, "unit": self.unit}
 
     @classmethod
-    def from_json(cls, d: dict) -> "CheckResult":
+    def from_json(cls, d: Mapping[str, Any]) -> "CheckResult":  # Any: values as parsed from JSON
         return cls(
             name=d["name"],
             verdict=Verdict(d["verdict"]),
