@@ -15,6 +15,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike, NDArray
 from scipy.special import ellipk
 
 
@@ -26,10 +27,11 @@ class CpwQuasiStatic:
     eps_eff: float
 
 
-def k_ratio(k):
+def k_ratio(k: ArrayLike) -> np.float64 | NDArray[np.float64]:
     """K(k) / K'(k), with k the modulus (not the parameter m = k^2)."""
     m = np.asarray(k, dtype=float) ** 2
-    return ellipk(m) / ellipk(1.0 - m)
+    q: np.float64 | NDArray[np.float64] = ellipk(m) / ellipk(1.0 - m)  # scipy is untyped; a scalar k gives a scalar
+    return q
 
 
 def _check(w_m: float, s_m: float, h_m: float, eps_r: float) -> None:
