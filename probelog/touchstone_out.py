@@ -81,7 +81,7 @@ def _skrf_text(ntwk: skrf.Network, lines: list[str], r_ref: float) -> bytes:
     out.frequency.unit = "hz"
     out.comments = "\n".join(lines)
     out.name = out.name or "probelog"
-    text = out.write_touchstone(return_string=True, skrf_comment=False, form="ri", version="1.0", r_ref=r_ref)
+    text: str = out.write_touchstone(return_string=True, skrf_comment=False, form="ri", version="1.0", r_ref=r_ref)
     return text.encode("ascii", "replace")  # Touchstone is ASCII; header values are escaped
 
 
