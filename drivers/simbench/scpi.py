@@ -10,7 +10,10 @@ import re
 import threading
 from collections import deque
 from dataclasses import dataclass
-from typing import Callable
+from typing import TYPE_CHECKING, Callable
+
+if TYPE_CHECKING:  # server.py imports this module; Reply is only needed for the Handler type
+    from probelog.drivers.simbench.server import Reply
 
 ERRORS = {
     -100: "Command error",
@@ -74,7 +77,7 @@ def _mnemonic(word: str) -> str:
     return re.escape(long) if short.upper() == long else f"(?:{re.escape(long)}|{re.escape(short.upper())})"
 
 
-def compile_header(pattern: str) -> re.Pattern:
+def compile_header(pattern: str) -> re.Pattern[str]:
     """``[SENSe:]FREQuency:STARt`` -> a regex matching the accepted spellings.
     A trailing '?' in the pattern makes it a query."""
     query = pattern.endswith("?")
@@ -94,12 +97,13 @@ def compile_header(pattern: str) -> re.Pattern:
     return re.compile("^:?" + out + (r"\?" if query else "") + "$", re.IGNORECASE)
 
 
-Handler = Callable[[list[str]], "bytes | str | None"]
+# a query answers a Reply (binary or faulty data) or text; a setting answers None
+Handler = Callable[[list[str]], "Reply | str | None"]
 
 
 @dataclass
 class Command:
-    regex: re.Pattern
+    regex: re.Pattern[str]
     handler: Handler
 
 

@@ -13,7 +13,7 @@ import threading
 from dataclasses import dataclass
 from typing import Protocol
 
-from probelog.drivers.simbench.scpi import ScpiError, split_line
+from probelog.drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError, split_line
 
 MAX_LINE = 1 << 16
 _QUICKACK = getattr(socket, "TCP_QUICKACK", None)  # Linux only
@@ -33,8 +33,8 @@ class Instrument(Protocol):
     def handle_line(self, line: str) -> Reply | None: ...
 
 
-def run_line(line: str, table, errors, lock: threading.Lock) -> Reply | None:
-    """Run every command of one SCPI line against ``table`` (a CommandTable) under
+def run_line(line: str, table: CommandTable, errors: ErrorQueue, lock: threading.Lock) -> Reply | None:
+    """Run every command of one SCPI line against ``table`` under
     ``lock``; an ScpiError goes to ``errors``, the queries' answers are joined
     with ';' (IEEE 488.2 response message units) into one Reply, or None."""
     answers: list[Reply] = []
