@@ -13,6 +13,7 @@ import time
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import NDArray
 
 TRACE_NOISE_DB = 0.002  # rms at 1 kHz IFBW
 TRACE_NOISE_DEG = 0.02
@@ -21,7 +22,7 @@ DRIFT_DB_PER_H = 0.02  # |S21| tracking at 110 GHz
 DRIFT_DEG_PER_H = 0.3
 
 
-def add_noise(s: np.ndarray, rng: np.random.Generator, ifbw_hz: float, power_dbm: float) -> np.ndarray:
+def add_noise(s: NDArray[np.complex128], rng: np.random.Generator, ifbw_hz: float, power_dbm: float) -> NDArray[np.complex128]:
     """Return s with multiplicative trace noise and an additive noise floor.
 
     Trace noise: log-amplitude and phase independent Gaussians of rms
@@ -33,12 +34,13 @@ def add_noise(s: np.ndarray, rng: np.random.Generator, ifbw_hz: float, power_dbm
     sig_p = np.deg2rad(TRACE_NOISE_DEG) * k
     n = rng.standard_normal((4,) + s.shape)
     # exp(a + j p) to first order: the terms are ~1e-4, the error ~1e-8
-    trace = (1 + sig_a * n[0]) + 1j * (sig_p * n[1])
+    trace: NDArray[np.complex128] = (1 + sig_a * n[0]) + 1j * (sig_p * n[1])  # n[i]: numpy types it Any
     floor = 10 ** ((NOISE_FLOOR_DBC + (-10.0 - power_dbm)) / 20) * k / np.sqrt(2)
-    return s * trace + floor * (n[2] + 1j * n[3])
+    added: NDArray[np.complex128] = floor * (n[2] + 1j * n[3])
+    return s * trace + added
 
 
-def drift_factors(f: np.ndarray, hours: float, seed: int) -> tuple[np.ndarray, np.ndarray]:
+def drift_factors(f: NDArray[np.float64], hours: float, seed: int) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
     """Multipliers d1, d2 of each port's tracking e10 e01 after ``hours``.
 
     A thru's S21 moves by sqrt(d1 d2): DRIFT_DB_PER_H and DRIFT_DEG_PER_H per hour
