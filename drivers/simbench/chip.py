@@ -102,7 +102,8 @@ class Chip:
         return None
 
 
-def _get(table: dict, key: str, where: str, typ: type | tuple = (int, float)):
+# Any: TOML values; isinstance(value, typ) below is what makes them safe to use
+def _get(table: dict[str, Any], key: str, where: str, typ: type | tuple[type, ...] = (int, float)) -> Any:
     if key not in table:
         raise ChipFileError(f"{where}: missing field {key!r}")
     value = table[key]
@@ -111,7 +112,7 @@ def _get(table: dict, key: str, where: str, typ: type | tuple = (int, float)):
     return value
 
 
-def _site(t: dict, i: int, path: Path, metals: dict) -> Site:
+def _site(t: dict[str, Any], i: int, path: Path, metals: dict[str, Any]) -> Site:
     where = f"{path.name} [[site]] #{i + 1}"
     name = _get(t, "name", where, str)
     where = f"{path.name} site {name!r}"
