@@ -17,9 +17,11 @@ tends to (1 + j) R_s-like sqrt(f) growth; we do not use skrf's CPW loss (it is
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import skrf
+from numpy.typing import ArrayLike, NDArray
 from scipy.special import ellipk
 from skrf.media import CPW, DefinedGammaZ0
 
@@ -29,6 +31,12 @@ C0 = 299_792_458.0  # m/s
 MU0 = 4e-7 * np.pi  # H/m
 EPS0 = 1.0 / (MU0 * C0**2)  # F/m
 Z_REF = 50.0  # ohm, port reference impedance
+
+F64 = NDArray[np.float64]  # real arrays over frequency (Hz, H/m, F/m)
+C128 = NDArray[np.complex128]  # ABCD and S stacks
+# Impedances and admittances: complex128 at run time, but numpy's stubs type
+# arithmetic with a Python complex (1j * w) as complexfloating[Any, Any].
+ZY = NDArray[np.complexfloating[Any, Any]]
 
 
 @dataclass(frozen=True)
@@ -76,44 +84,47 @@ class LineModel:
     loss tangent applied to C.
     """
 
-    L: np.ndarray
-    C: np.ndarray
+    L: F64
+    C: F64
     r_dc: float
     w0: float
     g_dc: float
     tan_d: float
 
     @property
-    def z0_lossless(self) -> np.ndarray:
+    def z0_lossless(self) -> F64:
         return np.sqrt(self.L / self.C)
 
     @property
-    def eps_eff_lossless(self) -> np.ndarray:
+    def eps_eff_lossless(self) -> F64:
         return C0**2 * self.L * self.C
 
-    def series_z(self, f: np.ndarray) -> np.ndarray:
+    def series_z(self, f: F64) -> ZY:
         """Series impedance per metre (ohm/m)."""
         w = 2 * np.pi * f
-        return 1j * w * self.L + self.r_dc * np.sqrt(1 + 1j * w / self.w0)
+        z: ZY = 1j * w * self.L + self.r_dc * np.sqrt(1 + 1j * w / self.w0)  # numpy's stubs lose the type in sqrt(1 + ...)
+        return z
 
-    def shunt_y(self, f: np.ndarray) -> np.ndarray:
+    def shunt_y(self, f: F64) -> ZY:
         """Shunt admittance per metre (S/m)."""
         w = 2 * np.pi * f
         return self.g_dc + w * self.C * (1j + self.tan_d)
 
-    def gamma_zc(self, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def gamma_zc(self, f: F64) -> tuple[ZY, ZY]:
         """Propagation constant (1/m, Re >= 0) and characteristic impedance (ohm)."""
         z, y = self.series_z(f), self.shunt_y(f)
         return np.sqrt(z * y), np.sqrt(z / y)
 
 
-def _quasi_static_lc(site: Site, chip: Chip, freq: skrf.Frequency) -> tuple[np.ndarray, np.ndarray, float, float]:
+def _quasi_static_lc(site: Site, chip: Chip, freq: skrf.Frequency) -> tuple[F64, F64, float, float]:
     """Lossless L, C (per m) of the site's line, the substrate filling factor for
     substrate conductance and the dielectric tan_d."""
+    # chip.py's loader requires metal, width and gap of every line kind
+    assert site.metal is not None and site.width_um is not None and site.gap_um is not None
     p, m = chip.process, chip.metals[site.metal]
     w, s = site.width_um * 1e-6, site.gap_um * 1e-6
 
-    def lc(media: CPW) -> tuple[np.ndarray, np.ndarray]:
+    def lc(media: CPW) -> tuple[F64, F64]:
         z0 = np.real(media.z0_characteristic)
         ee = np.real(media.ep_reff_f)
         return z0 * np.sqrt(ee) / C0, np.sqrt(ee) / (C0 * z0)
@@ -138,8 +149,9 @@ def _quasi_static_lc(site: Site, chip: Chip, freq: skrf.Frequency) -> tuple[np.n
     return L, C, 0.0, 2 * p["oxide_tan_d"]
 
 
-def line_model(site: Site, chip: Chip, f: np.ndarray, var: DieVariation = NOMINAL) -> LineModel:
+def line_model(site: Site, chip: Chip, f: F64, var: DieVariation = NOMINAL) -> LineModel:
     """RLGC of a line site on a die with process deviations ``var``."""
+    assert site.metal is not None and site.width_um is not None  # required for line kinds by chip.py
     p, m = chip.process, chip.metals[site.metal]
     freq = skrf.Frequency.from_f(np.asarray(f, float), unit="Hz")
     L, C, q, tan_d = _quasi_static_lc(site, chip, freq)
@@ -162,7 +174,7 @@ def line_model(site: Site, chip: Chip, f: np.ndarray, var: DieVariation = NOMINA
     return LineModel(L=L, C=C, r_dc=r_dc * loss, w0=w0, g_dc=g_dc * loss, tan_d=tan_d * loss)
 
 
-def line_media(site: Site, chip: Chip, f: np.ndarray, var: DieVariation = NOMINAL) -> DefinedGammaZ0:
+def line_media(site: Site, chip: Chip, f: F64, var: DieVariation = NOMINAL) -> DefinedGammaZ0:
     """The site's line as an skrf medium with explicit causal gamma, 50 ohm ports."""
     model = line_model(site, chip, f, var)
     gamma, zc = model.gamma_zc(np.asarray(f, float))
@@ -173,7 +185,7 @@ def line_media(site: Site, chip: Chip, f: np.ndarray, var: DieVariation = NOMINA
 # ---- lumped pieces as ABCD arrays (n, 2, 2) -------------------------------------------------
 
 
-def series(z: np.ndarray) -> np.ndarray:
+def series(z: ArrayLike) -> C128:
     """ABCD of a series impedance z (ohm)."""
     z = np.asarray(z, complex)
     a = np.zeros(z.shape + (2, 2), complex)
@@ -182,7 +194,7 @@ def series(z: np.ndarray) -> np.ndarray:
     return a
 
 
-def shunt(y: np.ndarray) -> np.ndarray:
+def shunt(y: ArrayLike) -> C128:
     """ABCD of a shunt admittance y (S)."""
     y = np.asarray(y, complex)
     a = np.zeros(y.shape + (2, 2), complex)
@@ -191,36 +203,38 @@ def shunt(y: np.ndarray) -> np.ndarray:
     return a
 
 
-def chain(*abcd: np.ndarray) -> np.ndarray:
+def chain(*abcd: C128) -> C128:
     out = abcd[0]
     for a in abcd[1:]:
         out = out @ a
     return out
 
 
-def _through(f: np.ndarray) -> np.ndarray:
+def _through(f: F64) -> C128:
     """ABCD of a zero-length connection (identity), shape (n, 2, 2)."""
     return np.broadcast_to(np.eye(2, dtype=complex), (len(f), 2, 2)).copy()
 
 
-def terminated_y(abcd: np.ndarray, y_load: np.ndarray) -> np.ndarray:
+def terminated_y(abcd: C128, y_load: ZY) -> ZY:
     """Input admittance (S) of a 2-port (ABCD) loaded by y_load at its port 2."""
     A, B, C, D = abcd[:, 0, 0], abcd[:, 0, 1], abcd[:, 1, 0], abcd[:, 1, 1]
     return (C + D * y_load) / (A + B * y_load)
 
 
-def pair_s(y1: np.ndarray, y2: np.ndarray, yc: np.ndarray) -> np.ndarray:
+def pair_s(y1: ZY, y2: ZY, yc: ZY) -> C128:
     """S (50 ohm) of two one-ports (admittances y1 at port 1, y2 at port 2) with a
     weak coupling admittance yc between the ports: the crosstalk of a reflect pair."""
     y = np.empty(y1.shape + (2, 2), complex)
     y[:, 0, 0] = y1 + yc
     y[:, 1, 1] = y2 + yc
     y[:, 0, 1] = y[:, 1, 0] = -yc
-    return skrf.network.y2s(y, z0=Z_REF)
+    s: C128 = skrf.network.y2s(y, z0=Z_REF)  # scikit-rf is untyped
+    return s
 
 
-def abcd_to_s(abcd: np.ndarray) -> np.ndarray:
-    return skrf.network.a2s(abcd, z0=Z_REF)
+def abcd_to_s(abcd: C128) -> C128:
+    s: C128 = skrf.network.a2s(abcd, z0=Z_REF)  # scikit-rf is untyped
+    return s
 
 
 @dataclass(frozen=True)
@@ -230,10 +244,10 @@ class SiteModel:
     chip: Chip
     var: DieVariation = NOMINAL
 
-    def _w(self, f: np.ndarray) -> np.ndarray:
+    def _w(self, f: F64) -> F64:
         return 2 * np.pi * f
 
-    def pad(self, f: np.ndarray, port: int) -> np.ndarray:
+    def pad(self, f: F64, port: int) -> C128:
         """GSG pad as ABCD from the probe tip inward: shunt C (with a little
         substrate loss), then series R + j w L into the structure. Port 2 is mirrored."""
         p, w = self.chip.process, self._w(f)
@@ -242,40 +256,42 @@ class SiteModel:
         se = series(p["pad_r_ohm"] + 1j * w * p["pad_l_ph"] * 1e-12)
         return chain(sh, se) if port == 1 else chain(se, sh)
 
-    def crosstalk_y(self, f: np.ndarray) -> np.ndarray:
+    def crosstalk_y(self, f: F64) -> ZY:
         return 1j * self._w(f) * self.chip.process["crosstalk_c_ff"] * 1e-15
 
-    def open_y(self, f: np.ndarray) -> np.ndarray:
+    def open_y(self, f: F64) -> ZY:
         return 1j * self._w(f) * self.chip.process["open_c_ff"] * 1e-15
 
-    def short_y(self, f: np.ndarray) -> np.ndarray:
+    def short_y(self, f: F64) -> ZY:
         p = self.chip.process
         return 1 / (p["short_r_ohm"] + 1j * self._w(f) * p["short_l_ph"] * 1e-12)
 
-    def load_y(self, f: np.ndarray) -> np.ndarray:
+    def load_y(self, f: F64) -> ZY:
         p = self.chip.process
         r = p["load_r_ohm"] * (1 + self.var.load_trim)
         return 1 / (r + 1j * self._w(f) * p["load_l_ph"] * 1e-12)
 
-    def air_y(self, f: np.ndarray) -> np.ndarray:
+    def air_y(self, f: F64) -> ZY:
         """A probe tip in air: its own fringing C and a little radiation conductance
         rising as f^2 (|S11| ~0.2 dB below 0 dB at 110 GHz, common practice, no source)."""
         return 1j * self._w(f) * self.chip.process["air_c_ff"] * 1e-15 + 2e-4 * (f / 110e9) ** 2
 
-    def air(self, f: np.ndarray) -> np.ndarray:
+    def air(self, f: F64) -> C128:
         """Both tips in air (or on bare passivation)."""
         y = self.air_y(f)
         return pair_s(y, y, self.crosstalk_y(f) / 3)
 
-    def line_abcd(self, site: Site, f: np.ndarray) -> np.ndarray:
+    def line_abcd(self, site: Site, f: F64) -> C128:
         """ABCD of the bare line. Built with the line's own Zc as port impedance:
         ABCD does not depend on it, and it spares skrf a renormalisation."""
         model = line_model(site, self.chip, f, self.var)
         gamma, zc = model.gamma_zc(f)
         media = DefinedGammaZ0(skrf.Frequency.from_f(f, unit="Hz"), z0=zc, gamma=gamma)
-        return media.line(site.length_um * 1e-6, "m").a
+        assert site.length_um is not None  # required for line kinds by chip.py
+        abcd: C128 = media.line(site.length_um * 1e-6, "m").a  # scikit-rf is untyped
+        return abcd
 
-    def device_abcd(self, site: Site, f: np.ndarray) -> np.ndarray:
+    def device_abcd(self, site: Site, f: F64) -> C128:
         m, w = site.model, self._w(f)
         if m["model"] == "spiral":
             # skin effect on the winding: R grows as sqrt(f) above ~2 GHz
@@ -289,7 +305,7 @@ class SiteModel:
         ybot = w * m["cp_ff"] * 1e-15 * (1j + 0.05)
         return chain(series(z), shunt(ybot))
 
-    def site_s(self, site: Site | None, f: np.ndarray) -> np.ndarray:
+    def site_s(self, site: Site | None, f: F64) -> C128:
         """True S (n, 2, 2) of a site, or of tips on bare passivation when site is None."""
         f = np.asarray(f, float)
         if site is None:
@@ -308,7 +324,7 @@ class SiteModel:
         # each port lands on its own (identical) copy of the reflect
         return pair_s(y, y, self.crosstalk_y(f))
 
-    def dead_s(self, f: np.ndarray, shorted: bool) -> np.ndarray:
+    def dead_s(self, f: F64, shorted: bool) -> C128:
         """A dead die: the pads are there but open (or shorted) behind them."""
         y = terminated_y(self.pad(f, 1), self.short_y(f) if shorted else np.zeros_like(f, complex))
         return pair_s(y, y, self.crosstalk_y(f))
