@@ -20,7 +20,7 @@ import skrf
 from skrf.calibration import terminate
 from skrf.media import DefinedGammaZ0
 
-from probelog.drivers.simbench.physics import abcd_to_s, chain, series, shunt
+from probelog.drivers.simbench.physics import C128, F64, abcd_to_s, chain, series, shunt
 
 DB_PER_NP = 20 / np.log(10)
 
@@ -48,7 +48,10 @@ class PortHardware:
 def port_hardware(seed: int, port: int) -> PortHardware:
     """Nominal hardware with a few per cent seeded spread between the two ports."""
     g = np.random.default_rng([seed, 101, port])
-    j = lambda v, rel: float(v * (1 + g.normal(0, rel)))  # noqa: E731
+
+    def j(v: float, rel: float) -> float:
+        return float(v * (1 + g.normal(0, rel)))
+
     h = PortHardware()
     return PortHardware(
         cable_delay_s=j(h.cable_delay_s, 0.05),
@@ -68,16 +71,17 @@ def port_hardware(seed: int, port: int) -> PortHardware:
     )
 
 
-def _guide_abcd(freq: skrf.Frequency, delay_s: float, z0: float, loss_db60: float) -> np.ndarray:
+def _guide_abcd(freq: skrf.Frequency, delay_s: float, z0: float, loss_db60: float) -> C128:
     """ABCD of a guide with the given delay and loss: 70 % skin-effect (sqrt f) and
     30 % dielectric (f) loss at 60 GHz, on an skrf medium with unit length 1 m."""
     f = freq.f
     alpha = (0.7 * np.sqrt(f / 60e9) + 0.3 * (f / 60e9)) * loss_db60 / DB_PER_NP
     gamma = alpha + 1j * 2 * np.pi * f * delay_s
-    return DefinedGammaZ0(freq, z0=np.full(len(f), z0, complex), gamma=gamma).line(1.0, "m").a
+    abcd: C128 = DefinedGammaZ0(freq, z0=np.full(len(f), z0, complex), gamma=gamma).line(1.0, "m").a  # scikit-rf is untyped
+    return abcd
 
 
-def box_s(f: np.ndarray, hw: PortHardware) -> np.ndarray:
+def box_s(f: F64, hw: PortHardware) -> C128:
     """S (n, 2, 2) of one port's error box: port 1 = VNA side, port 2 = probe tip."""
     f = np.asarray(f, float)
     w = 2 * np.pi * f
@@ -98,10 +102,12 @@ def box_s(f: np.ndarray, hw: PortHardware) -> np.ndarray:
     return s
 
 
-def switch_term(f: np.ndarray, hw: PortHardware) -> np.ndarray:
+def switch_term(f: F64, hw: PortHardware) -> C128:
     """Load match of a port's receiver when the other port drives (a2/b2), shape (n,)."""
     w = 2 * np.pi * np.asarray(f, float)
-    return 10 ** (hw.switch_db / 20) * np.exp(-1j * w * hw.switch_delay_s) * (1 + 0.3 * np.exp(-1j * w * 80e-12))
+    # typed here: numpy's stubs give 10 ** float as Any
+    gamma: C128 = 10 ** (hw.switch_db / 20) * np.exp(-1j * w * hw.switch_delay_s) * (1 + 0.3 * np.exp(-1j * w * 80e-12))
+    return gamma
 
 
 @dataclass(frozen=True)
@@ -113,19 +119,19 @@ class ErrorModel:
     gamma_f = a2/b2 with port 1 driving; gamma_r = a1/b1 with port 2 driving.
     """
 
-    f: np.ndarray
-    x: np.ndarray
-    y: np.ndarray
-    gamma_f: np.ndarray
-    gamma_r: np.ndarray
+    f: F64
+    x: C128
+    y: C128
+    gamma_f: C128
+    gamma_r: C128
 
 
-def flip(s: np.ndarray) -> np.ndarray:
+def flip(s: C128) -> C128:
     """Swap the ports of 2-port S arrays."""
     return s[:, ::-1, ::-1].copy()
 
 
-def error_model(f: np.ndarray, seed: int) -> ErrorModel:
+def error_model(f: F64, seed: int) -> ErrorModel:
     hw1, hw2 = port_hardware(seed, 1), port_hardware(seed, 2)
     f = np.asarray(f, float)
     return ErrorModel(
@@ -137,7 +143,7 @@ def error_model(f: np.ndarray, seed: int) -> ErrorModel:
     )
 
 
-def cascade(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+def cascade(a: C128, b: C128) -> C128:
     """S of 2-port a followed by 2-port b (a's port 2 to b's port 1), vectorised."""
     a11, a21, a12, a22 = (np.ascontiguousarray(a[:, i, j]) for i, j in ((0, 0), (1, 0), (0, 1), (1, 1)))
     b11, b21, b12, b22 = (np.ascontiguousarray(b[:, i, j]) for i, j in ((0, 0), (1, 0), (0, 1), (1, 1)))
@@ -150,7 +156,7 @@ def cascade(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return out
 
 
-def drifted(em: ErrorModel, d1: np.ndarray, d2: np.ndarray) -> ErrorModel:
+def drifted(em: ErrorModel, d1: C128, d2: C128) -> ErrorModel:
     """Error model whose port-1 and port-2 transmission tracking (e10 e01) are
     multiplied by d1 and d2 (complex, shape (n,)); boxes stay reciprocal."""
     x, y = em.x.copy(), em.y.copy()
@@ -162,13 +168,14 @@ def drifted(em: ErrorModel, d1: np.ndarray, d2: np.ndarray) -> ErrorModel:
     return ErrorModel(em.f, x, y, em.gamma_f, em.gamma_r)
 
 
-def raw_from_true(dut: np.ndarray, em: ErrorModel) -> np.ndarray:
+def raw_from_true(dut: C128, em: ErrorModel) -> C128:
     """What the uncorrected VNA reports for a DUT (n, 2, 2): through the boxes,
     with switch terms (skrf.calibration.terminate)."""
     freq = skrf.Frequency.from_f(em.f, unit="Hz")
     inner = skrf.Network(frequency=freq, s=cascade(cascade(em.x, dut), em.y))
     gf = skrf.Network(frequency=freq, s=em.gamma_f.reshape(-1, 1, 1))
     gr = skrf.Network(frequency=freq, s=em.gamma_r.reshape(-1, 1, 1))
-    return terminate(inner, gf, gr).s
+    raw: C128 = terminate(inner, gf, gr).s  # scikit-rf is untyped
+    return raw
 
 
