@@ -15,9 +15,10 @@ import threading
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from probelog.drivers.simbench.errorbox import cascade
-from probelog.drivers.simbench.physics import Z_REF, SiteModel, abcd_to_s, pair_s, series
+from probelog.drivers.simbench.physics import C128, F64, Z_REF, ZY, SiteModel, abcd_to_s, pair_s, series
 
 CONTACT_KINDS = ("lifted-1", "lifted-2", "lifted", "high-rc", "skate", "dead-die")
 PROTOCOL_KINDS = ("slow", "garbled", "drop")
@@ -97,6 +98,12 @@ def parse_fault(spec: str, site_names: set[str] | None = None) -> Fault:
     return Fault(kind, die, site, count)
 
 
+@dataclass
+class _Pending:
+    fault: Fault
+    left: int | None  # landings it still applies to; None: every landing
+
+
 class FaultBook:
     """Pending faults and faults drawn by chance; thread-safe.
 
@@ -107,29 +114,29 @@ class FaultBook:
     def __init__(self, faults: list[Fault] | None = None, rate: float = 0.0, seed: int = 0) -> None:
         if not 0.0 <= rate <= 1.0:
             raise ValueError(f"fault rate must be within 0..1, got {rate}")
-        self._pending: list[list] = [[f, f.count] for f in faults or []]
+        self._pending: list[_Pending] = [_Pending(f, f.count) for f in faults or []]
         self._rate = rate
         self._rng = np.random.default_rng([seed, 303])
         self._lock = threading.Lock()
 
     def add(self, fault: Fault) -> None:
         with self._lock:
-            self._pending.append([fault, fault.count])
+            self._pending.append(_Pending(fault, fault.count))
 
     def pending(self) -> list[Fault]:
         with self._lock:
-            return [f for f, _ in self._pending]
+            return [e.fault for e in self._pending]
 
     def landing(self, die: tuple[int, int], site: str | None) -> tuple[str, ...]:
         kinds: list[str] = []
         with self._lock:
             for entry in self._pending:
-                fault, left = entry
+                fault = entry.fault
                 if fault.matches(die, site) and fault.kind not in kinds:
                     kinds.append(fault.kind)
-                    if left is not None:
-                        entry[1] = left - 1
-            self._pending = [e for e in self._pending if e[1] is None or e[1] > 0]
+                    if entry.left is not None:
+                        entry.left -= 1
+            self._pending = [e for e in self._pending if e.left is None or e.left > 0]
             if self._rate > 0 and self._rng.random() < self._rate:
                 names = list(CHANCE_WEIGHTS)
                 p = np.array([CHANCE_WEIGHTS[n] for n in names])
@@ -139,16 +146,16 @@ class FaultBook:
         return tuple(kinds)
 
 
-def _y_of(gamma: np.ndarray) -> np.ndarray:
+def _y_of(gamma: C128) -> ZY:
     return (1 - gamma) / (1 + gamma) / Z_REF
 
 
-def _series_s(z: np.ndarray) -> np.ndarray:
+def _series_s(z: ArrayLike) -> C128:
     return abcd_to_s(series(z))
 
 
-def apply_contact_faults(s: np.ndarray, kinds: tuple[str, ...], model: SiteModel, f: np.ndarray,
-                         die: tuple[int, int]) -> np.ndarray:
+def apply_contact_faults(s: C128, kinds: tuple[str, ...], model: SiteModel, f: F64,
+                         die: tuple[int, int]) -> C128:
     """True S of a landing with contact faults applied (vectorised, (n, 2, 2))."""
     f = np.asarray(f, float)
     w = 2 * np.pi * f
