@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import threading
 from collections import OrderedDict
+from typing import Callable, Generic, Hashable, TypeVar
 
 import numpy as np
 
@@ -15,16 +16,19 @@ from probelog.drivers.simbench.chip import Chip
 from probelog.drivers.simbench.errorbox import ErrorModel, drifted, error_model, raw_from_true
 from probelog.drivers.simbench.faults import apply_contact_faults
 from probelog.drivers.simbench.impairments import add_noise, drift_factors
-from probelog.drivers.simbench.physics import NOMINAL, SiteModel, die_variation
+from probelog.drivers.simbench.physics import C128, F64, NOMINAL, SiteModel, die_variation
 
 
-class _Lru:
+V = TypeVar("V")
+
+
+class _Lru(Generic[V]):
     def __init__(self, size: int) -> None:
-        self._d: OrderedDict = OrderedDict()
+        self._d: OrderedDict[Hashable, V] = OrderedDict()
         self._size = size
         self._lock = threading.Lock()
 
-    def get(self, key, make):
+    def get(self, key: Hashable, make: Callable[[], V]) -> V:
         with self._lock:
             if key in self._d:
                 self._d.move_to_end(key)
@@ -37,7 +41,7 @@ class _Lru:
         return value
 
 
-def _fkey(f: np.ndarray) -> tuple:
+def _fkey(f: F64) -> tuple[int, float, float, int]:
     return (len(f), float(f[0]), float(f[-1]), hash(f.tobytes()))
 
 
@@ -48,30 +52,30 @@ class Simulator:
         self.chip = chip
         self.seed = seed
         self.variation = variation
-        self._sites = _Lru(64)
-        self._boxes = _Lru(8)
+        self._sites: _Lru[C128] = _Lru(64)
+        self._boxes: _Lru[ErrorModel] = _Lru(8)
 
     def model(self, die: tuple[int, int]) -> SiteModel:
         var = die_variation(self.chip, die, self.seed) if self.variation else NOMINAL
         return SiteModel(self.chip, var)
 
-    def true_s(self, die: tuple[int, int], site: str | None, f: np.ndarray) -> np.ndarray:
+    def true_s(self, die: tuple[int, int], site: str | None, f: F64) -> C128:
         """Error-free S of ``site`` on ``die`` (None = bare passivation, tips in air)."""
         f = np.ascontiguousarray(f, float)
 
-        def make() -> np.ndarray:
+        def make() -> C128:
             s = self.model(die).site_s(self.chip.site(site) if site else None, f)
             s.setflags(write=False)
             return s
 
         return self._sites.get((die, site, _fkey(f)), make)
 
-    def error_model(self, f: np.ndarray) -> ErrorModel:
+    def error_model(self, f: F64) -> ErrorModel:
         f = np.ascontiguousarray(f, float)
         return self._boxes.get(_fkey(f), lambda: error_model(f, self.seed))
 
-    def raw(self, die: tuple[int, int], site: str | None, kinds: tuple[str, ...], f: np.ndarray,
-            hours: float, ifbw_hz: float, power_dbm: float, rng: np.random.Generator | None) -> np.ndarray:
+    def raw(self, die: tuple[int, int], site: str | None, kinds: tuple[str, ...], f: F64,
+            hours: float, ifbw_hz: float, power_dbm: float, rng: np.random.Generator | None) -> C128:
         """Raw 2-port the VNA reports: faults on the true S, drifted error boxes,
         switch terms, then noise (skipped when rng is None)."""
         f = np.ascontiguousarray(f, float)
