@@ -196,7 +196,7 @@ class ScpiProber(InterlockedProber):
             self.link.close()
             raise
 
-    def _run(self, operation: str, **values) -> None:
+    def _run(self, operation: str, **values: float) -> None:
         cmd = self.dialect.command(operation, **values)
         # one error-queue read after *OPC? covers the command too: a rejected
         # command still completes, and its error is waiting in the queue
