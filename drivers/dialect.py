@@ -224,7 +224,7 @@ def _fail(path: Path, message: str) -> DialectError:
     return DialectError(f"{path}: {message}", resource=str(path))
 
 
-def _validate(doc: dict, text: str, path: Path, kind: Kind) -> Dialect:
+def _validate(doc: dict[str, Any], text: str, path: Path, kind: Kind) -> Dialect:  # Any: parsed TOML
     table = VNA_COMMANDS if kind == "vna" else PROBER_COMMANDS
     unknown = set(doc) - _SECTIONS[kind]
     if unknown:
