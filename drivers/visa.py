@@ -38,12 +38,13 @@ import re
 import socket
 from contextlib import contextmanager
 from dataclasses import dataclass
-from typing import Iterator
+from typing import Any, Iterator, cast
 
 import numpy as np
 import pyvisa
 from pyvisa import constants
 from pyvisa.errors import VisaIOError
+from pyvisa.resources import MessageBasedResource
 
 from probelog.drivers.errors import (
     BadResourceName,
@@ -188,7 +189,7 @@ def _translate_os_error(exc: OSError, what: str, resource: str) -> TransportErro
     )
 
 
-def _translate_visa_error(exc: VisaIOError, what: str, resource: str, timeout_ms) -> TransportError:
+def _translate_visa_error(exc: VisaIOError, what: str, resource: str, timeout_ms: int) -> TransportError:
     code = exc.error_code
     label = f"VisaIOError {exc.abbreviation}"
     if code == constants.StatusCode.error_timeout:
@@ -284,7 +285,7 @@ class Link:
         # Read block payloads straight from pyvisa-py's socket (fast, sees a
         # closed peer at once); False forces the generic VISA read loop.
         self.direct_socket = True
-        self._res = None
+        self._res: MessageBasedResource | None = None
 
     # -- lifecycle
 
@@ -298,7 +299,8 @@ class Link:
                 f"VISA backend {self.backend!r} is not available: {exc}", resource=self.resource
             ) from None
         try:
-            res = rm.open_resource(self.resource)
+            # every resource a probelog dialect talks to is message based (SOCKET, INSTR, GPIB, ASRL)
+            res = cast(MessageBasedResource, rm.open_resource(self.resource))
         except VisaIOError as exc:
             raise _translate_visa_error(exc, "while opening", self.resource, self.settings.timeout_ms) from None
         except OSError as exc:
@@ -333,11 +335,11 @@ class Link:
         return self._res is not None
 
     @property
-    def visa_resource(self):
+    def visa_resource(self) -> MessageBasedResource:
         """The underlying pyvisa resource (for tests and measurements)."""
         return self._require()
 
-    def _require(self):
+    def _require(self) -> MessageBasedResource:
         if self._res is None:
             raise ConnectionLost(f"{self.resource}: the link is closed; reopen it", resource=self.resource)
         return self._res
@@ -456,6 +458,7 @@ class Link:
             _, count = parse_block_header(head + n_digits)
         except MalformedBlock as exc:
             raise MalformedBlock(f"{self.resource}: reply to {command!r}: {exc}", resource=self.resource) from None
+        assert count is not None  # only '#0' has no count, and it returned above
         payload = self._read_exact(count, command, total=count)
         term = (self.settings.read_termination or "").encode("ascii")
         if term:
@@ -468,8 +471,9 @@ class Link:
                 )
         return payload
 
-    def _socket_session(self):
-        """pyvisa-py's TCPIP SOCKET session object, or None for other backends."""
+    def _socket_session(self) -> Any:
+        """pyvisa-py's TCPIP SOCKET session object, or None for other backends
+        (Any: a private, untyped pyvisa-py class, recognised by its attributes)."""
         res = self._require()
         if not self.direct_socket:
             return None
@@ -490,7 +494,7 @@ class Link:
             return self._read_exact_socket(sess, count, command, total)
         return self._read_exact_visa(count, command, total)
 
-    def _short_or_timeout(self, got: int, count: int, command: str, total: int | None, cause: str):
+    def _short_or_timeout(self, got: int, count: int, command: str, total: int | None, cause: str) -> ShortBlock | InstrumentTimeout:
         if total is not None and got > 0:
             return ShortBlock(
                 f"{self.resource}: block from {command!r} announced {count} bytes, "
@@ -506,7 +510,7 @@ class Link:
             cause=cause,
         )
 
-    def _read_exact_socket(self, sess, count: int, command: str, total: int | None) -> bytes:
+    def _read_exact_socket(self, sess: Any, count: int, command: str, total: int | None) -> bytes:
         buf = bytearray(count)
         pending = sess._pending_buffer
         got = min(len(pending), count)
@@ -553,7 +557,7 @@ class Link:
                 res.read_termination = old_term
         return bytes(out)
 
-    def _visa_loop(self, res, out: bytearray, count: int, command: str, total: int | None) -> None:
+    def _visa_loop(self, res: MessageBasedResource, out: bytearray, count: int, command: str, total: int | None) -> None:
         while len(out) < count:
             try:
                 chunk, _status = res.visalib.read(res.session, min(count - len(out), res.chunk_size))
