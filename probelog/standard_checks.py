@@ -41,7 +41,7 @@ def _low(f_hz: np.ndarray, limits: Limits) -> np.ndarray:
     return mask if mask.any() else f_hz <= f_hz[0]
 
 
-def _result(verdict: Verdict, value: float, limit: float, at_hz: float, message: str, unit: str = ""):
+def _result(verdict: Verdict, value: float, limit: float, at_hz: float, message: str, unit: str = "") -> CheckResult:
     return CheckResult("contact", verdict, float(value), float(limit), float(at_hz), message, unit)
 
 
