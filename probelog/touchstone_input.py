@@ -32,7 +32,7 @@ MAX_BYTES = 64 * 1024 * 1024
 _V2_COUNT = re.compile(r"^\s*\[number of frequencies\]\s+(\S+)", re.IGNORECASE | re.MULTILINE)
 
 
-def _one_line(text: str) -> str:
+def _one_line(text: object) -> str:
     return " ".join(str(text).split())
 
 
