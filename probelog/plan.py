@@ -72,7 +72,9 @@ class Site:
     Expectations are None when the plan does not give them: ``z0_window_ohm``
     (lo, hi) in ohm, ``alpha_db_per_mm_max`` in dB/mm, ``eps_eff_window`` (lo, hi),
     ``window_band_hz`` (lo, hi) in Hz: where the windows are judged (default: the
-    whole sweep).
+    whole sweep). ``c_ref_pf_per_mm`` (pF/mm) or ``z0_ref_ohm`` (ohm): a line's
+    capacitance per length or impedance, known from elsewhere, that turns the
+    pad-free two-line gamma into Z0 and RLGC (probelog.line_pairs).
     """
 
     name: str
@@ -93,6 +95,8 @@ class Site:
     precheck: "Precheck | None" = None  # None: the plan's [precheck]
     s21_db_window: tuple[float, float] | None = None  # device: |S21| (dB) it must stay in over s21_band_hz
     s21_band_hz: tuple[float, float] | None = None
+    c_ref_pf_per_mm: float | None = None
+    z0_ref_ohm: float | None = None
 
 
 @dataclass(frozen=True)
@@ -520,7 +524,7 @@ _TOP = ("plan", "wafer", "site", "sequence", "calibration", "vna", "probes", "li
 _WAFER = ("id", "lot", "chip", "cols", "rows", "die_pitch_um", "skip", "dies", "order")
 _SITE = ("name", "kind", "offset_um", "ports", "symmetric", "length_um", "z0_window_ohm",
          "alpha_db_per_mm_max", "eps_eff_window", "window_band_hz", "line_type", "width_um", "gap_um", "metal", "note",
-         "precheck", "s21_db_window", "s21_band_hz")
+         "precheck", "s21_db_window", "s21_band_hz", "c_ref_pf_per_mm", "z0_ref_ohm")
 _SEQ = ("sites", "drift_site", "drift_die", "drift_every_landings", "recal_every_hours")
 _CAL = ("method", "compare_with", "kit", "die", "standards", "verification")
 _VNA = ("start_hz", "stop_hz", "points", "ifbw_hz", "power_dbm", "power_limit_dbm")
@@ -666,6 +670,9 @@ def _sites(ctx: _Ctx, raw: dict, wafer: Wafer) -> tuple[Site, ...]:
             s21_db_window=_s21_window(ctx, t, p, kind),
             s21_band_hz=_pair(ctx, t, "s21_band_hz", f"{p}.s21_band_hz", "a band [low, high] in Hz", None,
                               ordered=True, positive=True),
+            c_ref_pf_per_mm=_num(ctx, t, "c_ref_pf_per_mm", f"{p}.c_ref_pf_per_mm", None, positive=True,
+                                 allow_zero=False),
+            z0_ref_ohm=_num(ctx, t, "z0_ref_ohm", f"{p}.z0_ref_ohm", None, positive=True, allow_zero=False),
         ))
         if out[-1].s21_band_hz is not None and out[-1].s21_db_window is None:
             raise ctx.error(f"{p}.s21_band_hz", "needs s21_db_window (the |S21| window judged over that band)")

@@ -5,6 +5,7 @@ published closed form."""
 from __future__ import annotations
 
 import csv
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -88,3 +89,23 @@ def test_demo_bundle_has_pad_free_figures_near_the_closed_form(demo_sessions, tm
     assert all(abs(x / 6.3488 - 1) < 0.05 for x in pad_free)
     assert all(abs(x / 6.3488 - 1) > 0.3 for x in single)
     assert "Pad-free line figures" in (out / "report.html").read_text(encoding="utf-8")
+
+
+def test_a_plan_states_the_reference_on_the_line_site():
+    """The plan's site keys c_ref_pf_per_mm / z0_ref_ohm reach the pairing; a
+    reference that is not a positive number is refused with its key."""
+    from probelog.manifest import plan_sites
+    from probelog.plan import PlanError, load_plan_text
+
+    demo = (Path(__file__).resolve().parents[2] / "probelog" / "plans" / "demo.toml").read_text(encoding="utf-8")
+    marker = 'name = "ln-cpw-m9-r2-l500"\n'
+    text = demo.replace(marker, marker + "c_ref_pf_per_mm = 0.16\n", 1)
+    plan = load_plan_text(text, "p.toml", base_dir=Path(__file__).resolve().parents[2] / "probelog" / "plans")
+    site = next(s for s in plan.sites if s.name == "ln-cpw-m9-r2-l500")
+    assert site.c_ref_pf_per_mm == 0.16 and site.z0_ref_ohm is None
+    from probelog.line_pairs import line_site
+
+    assert line_site(site.name, plan_sites(text)[site.name]).c_ref_pf_per_mm == 0.16
+    with pytest.raises(PlanError, match=r"c_ref_pf_per_mm"):
+        load_plan_text(demo.replace(marker, marker + "c_ref_pf_per_mm = -1.0\n", 1), "p.toml",
+                       base_dir=Path(__file__).resolve().parents[2] / "probelog" / "plans")
