@@ -272,6 +272,22 @@ class DieSkipped(_Record, frozen=True):
     reason: str
 
 
+class LineFigures(_Record, frozen=True):
+    """Pad-free figures of one line family (type, metal, width, gap) on ``die``,
+    from its two lengths (probelog.line_pairs); written after the die's last
+    decision. ``metrics`` as in ``landing``; Z0 and RLGC null without a plan reference."""
+
+    TYPE: ClassVar[str] = "line-figures"
+    die: Die
+    family: str
+    site_a: str
+    site_b: str
+    length_a_um: float
+    length_b_um: float
+    z0_from: str = ""  # "", "c-ref" or "z0-ref"
+    metrics: Metrics = {}
+
+
 class Note(_Record, frozen=True):
     TYPE: ClassVar[str] = "note"
     text: str = ""
@@ -322,12 +338,12 @@ class UnknownEvent:
 Payload = Union[
     SessionOpened, SessionResumed, CautionsShown, CalStandard, CalComputed, CalVerification,
     CalAgreement, CalAccepted, CalRejected, RecalRequested, Landing, Drift, Decision, DieSkipped,
-    Note, Goto, InstrumentError, Recovered, SessionClosed,
+    Note, Goto, InstrumentError, Recovered, SessionClosed, LineFigures,
 ]
 EVENT_CLASSES: tuple[type[_Record], ...] = (
     SessionOpened, SessionResumed, CautionsShown, CalStandard, CalComputed, CalVerification,
     CalAgreement, CalAccepted, CalRejected, RecalRequested, Landing, Drift, Decision, DieSkipped,
-    Note, Goto, InstrumentError, Recovered, SessionClosed,
+    Note, Goto, InstrumentError, Recovered, SessionClosed, LineFigures,
 )
 BY_TYPE: dict[str, type[_Record]] = {c.TYPE: c for c in EVENT_CLASSES}
 AnyPayload = Union[Payload, UnknownEvent]

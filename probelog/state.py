@@ -388,4 +388,5 @@ _HANDLERS: dict[type, Any] = {
     ev.RecalRequested: _recal_requested, ev.Landing: _landing, ev.Drift: _drift, ev.Decision: _decision,
     ev.DieSkipped: _die_skipped, ev.Note: _note, ev.Goto: _goto, ev.InstrumentError: _instrument_error,
     ev.Recovered: _recovered, ev.SessionClosed: _closed,
+    ev.LineFigures: _same,  # derived figures on record; nothing in the walk depends on them
 }

@@ -12,6 +12,7 @@ from probelog.bench import Die
 from probelog.engine.core import die_of, need_reason
 from probelog.engine.types import DecisionRecorded, EngineError, Phase, StepKind
 from probelog.engine.walk import Walk
+from probelog.line_figures_step import die_events
 from probelog.verdicts import Verdict
 
 
@@ -87,6 +88,9 @@ class Policy(Walk):
     def _record(self, die: Die, site: str, landing: int, action: str, reason: str) -> None:
         before = self._phase
         e = self._append(ev.Decision(die=die, site=site, landing=landing, action=action, reason=reason))
+        if action != ev.RELAND and all(self.state.is_finished(d, s.name) for d, s in self.view.sequence if d == die):
+            for figures in die_events(self.state, die, self.plan.sites, self.session_dir):
+                self._append(figures)  # the die's pad-free line figures, after its last decision
         self._last_outcome = None
         self._emit(DecisionRecorded(seq=e.seq, die=die, site=site, landing=landing, action=action, reason=reason))
         self._announce_phase(before, e.seq)

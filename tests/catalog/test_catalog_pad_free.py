@@ -109,3 +109,25 @@ def test_a_plan_states_the_reference_on_the_line_site():
     with pytest.raises(PlanError, match=r"c_ref_pf_per_mm"):
         load_plan_text(demo.replace(marker, marker + "c_ref_pf_per_mm = -1.0\n", 1), "p.toml",
                        base_dir=Path(__file__).resolve().parents[2] / "probelog" / "plans")
+
+
+def test_the_engine_journals_each_dies_figures_after_its_last_decision(demo_sessions):
+    """One line-figures event a die (the demo pairs one family), after that die's
+    last decision, agreeing with the figures the catalog computes from the files."""
+    import json
+
+    from probelog.catalog.source import read_session
+
+    events = [json.loads(x) for x in (demo_sessions[0] / "journal.jsonl").read_text().splitlines()]
+    figs = [(i, e) for i, e in enumerate(events) if e["type"] == "line-figures"]
+    assert len(figs) == 12
+    for i, e in figs:
+        die = e["payload"]["die"]
+        later = [x for x in events[i + 1:] if x["type"] == "decision" and x["payload"]["die"] == die]
+        assert later == []  # written after the die's last decision
+    rec = read_session(demo_sessions[0])
+    cat = {(r["die_col"], r["die_row"], r["f_hz"]): r["eps_eff"] for r in rec.line_figures}
+    for _i, e in figs:
+        p = e["payload"]
+        for f, eps in zip(p["metrics"]["f_hz"], p["metrics"]["eps_eff"], strict=True):
+            assert cat[(p["die"][0], p["die"][1], f)] == pytest.approx(eps, rel=1e-9)
