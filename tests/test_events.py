@@ -52,6 +52,8 @@ SAMPLES: list[ev.Payload] = [
     ev.Recovered(torn_line="journal.torn-1", torn_bytes=12, adopted=[REF], leftover_temp=["data/.x.tmp-1-1"],
                  message="m"),
     ev.SessionClosed(completed=True, summary={"accepted": 3}),
+    ev.LineFigures(die=(2, 1), family="cpw/M9/10x6um", site_a="ln-a", site_b="ln-b", length_a_um=500.0,
+                   length_b_um=1500.0, metrics={"f_hz": [4e10], "eps_eff": [6.61], "z0_re": [None]}),
 ]
 
 

@@ -62,12 +62,15 @@ def line_figures_figure(rows: list[dict[str, Any]], f_hz: float) -> Any:
     one curve per line type and metal level (median over dies), the die-to-die
     spread (min..max) as a band. ``rows``: line_figures rows at ``f_hz``."""
     plt = _plt()
-    fig, axes = plt.subplots(1, 4, figsize=(14, 3.4))
-    panels = (("z0_re", "Re Z0 (ohm)"), ("alpha_db_per_mm", "loss (dB/mm)"), ("eps_eff", "eps_eff"), ("q", "Q"))
+    panels = [(k, label) for k, label in (("z0_re", "Re Z0 (ohm)"), ("alpha_db_per_mm", "loss (dB/mm)"),
+                                          ("eps_eff", "eps_eff"), ("q", "Q"))
+              if any(r[k] is not None for r in rows)]  # no Z0 panel without a reference in the plan
+    fig, axes = plt.subplots(1, max(1, len(panels)), figsize=(3.5 * max(1, len(panels)), 3.4), squeeze=False)
+    axes = axes[0]
     curves: dict[str, dict[float, list[dict[str, Any]]]] = defaultdict(lambda: defaultdict(list))
     for r in rows:
         curves[f"{r['line_type']} {r['metal']}"][r["width_um"] / r["gap_um"]].append(r)
-    for ax, (key, label) in zip(axes, panels, strict=True):
+    for ax, (key, label) in zip(axes, panels, strict=False):  # no panel at all: one empty axis
         for name, by_ratio in sorted(curves.items()):
             ratios = sorted(by_ratio)
             vals = [[x[key] for x in by_ratio[w] if x[key] is not None] for w in ratios]
@@ -129,6 +132,7 @@ def agreement_figure(rows: list[dict[str, Any]]) -> Any:
     for name, pts in sorted(series.items()):
         ax.plot([p["ts"] for p in pts], [p["worst"] for p in pts], "o-", label=name)
     ax.set_ylabel("worst |dS| bound")
+    ax.ticklabel_format(axis="y", useOffset=False)
     ax.set_title("Calibration agreement over time", fontsize=10)
     ax.grid(True, alpha=0.3)
     if series:

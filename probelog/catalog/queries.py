@@ -12,7 +12,7 @@ from datetime import datetime
 from statistics import median
 from typing import Any
 
-from sqlalchemy import Select, and_, case, func, or_, select
+from sqlalchemy import Select, and_, case, func, or_, select, true
 from sqlalchemy.engine import Connection
 
 from probelog.catalog.db import Catalog, CatalogError
@@ -113,24 +113,27 @@ def trend(cat: Catalog, quantity: str, site: str, at_hz: float | None = None,
     journaled frequency nearest to it (default: the middle one). Raises
     CatalogError for an unknown quantity or no data.
     """
-    base = [sessions.c.session_id, sessions.c.lot, sessions.c.wafer, sessions.c.opened_at]
+    # the value rows without the sessions join (joined here from one small query): the
+    # hot path is an index search on site, then primary-key lookups (SQLite and PostgreSQL)
     with cat.engine.connect() as conn:
         if quantity in METRIC_COLUMNS:
             where = and_(site_results.c.site == site, site_results.c.files_ok.is_(True))
             j = metrics.join(site_results, and_(site_results.c.session_id == metrics.c.session_id,
                                                 site_results.c.kept_seq == metrics.c.seq))
-            f = _pick_f(conn, metrics.c.f_hz, j, where, at_hz, f"{quantity} of site {site}")
-            q = select(*base, site_results.c.die_col, site_results.c.die_row, metrics.c[quantity].label("value"),
-                       metrics.c.f_hz).select_from(j.join(sessions, sessions.c.session_id == metrics.c.session_id)) \
+            sample = select(site_results.c.session_id, site_results.c.kept_seq).where(where).limit(200).subquery()
+            f = _pick_f(conn, metrics.c.f_hz, metrics.join(sample, and_(
+                sample.c.session_id == metrics.c.session_id, sample.c.kept_seq == metrics.c.seq)),
+                true(), at_hz, f"{quantity} of site {site}")
+            q = select(metrics.c.session_id, site_results.c.die_col, site_results.c.die_row,
+                       metrics.c[quantity], metrics.c.f_hz).select_from(j) \
                 .where(where, metrics.c.f_hz.between(f * 0.98, f * 1.02))
             unit = UNITS[quantity]
         elif quantity.startswith(PAD_FREE) and quantity[len(PAD_FREE):] in METRIC_COLUMNS:
             name = quantity[len(PAD_FREE):]
             where = or_(line_figures.c.site_a == site, line_figures.c.site_b == site, line_figures.c.family == site)
             f = _pick_f(conn, line_figures.c.f_hz, line_figures, where, at_hz, f"{quantity} of site {site}")
-            q = select(*base, line_figures.c.die_col, line_figures.c.die_row, line_figures.c[name].label("value"),
-                       line_figures.c.f_hz) \
-                .select_from(line_figures.join(sessions, sessions.c.session_id == line_figures.c.session_id)) \
+            q = select(line_figures.c.session_id, line_figures.c.die_col, line_figures.c.die_row,
+                       line_figures.c[name], line_figures.c.f_hz) \
                 .where(where, line_figures.c.f_hz.between(f * 0.98, f * 1.02))
             unit = UNITS[name]
         else:
@@ -142,18 +145,21 @@ def trend(cat: Catalog, quantity: str, site: str, at_hz: float | None = None,
             f, unit = None, known[0]
             j = checks.join(site_results, and_(site_results.c.session_id == checks.c.session_id,
                                                site_results.c.kept_seq == checks.c.seq))
-            q = select(*base, site_results.c.die_col, site_results.c.die_row, checks.c.value) \
-                .select_from(j.join(sessions, sessions.c.session_id == checks.c.session_id)) \
+            q = select(checks.c.session_id, site_results.c.die_col, site_results.c.die_row, checks.c.value,
+                       checks.c.at_hz).select_from(j) \
                 .where(checks.c.name == quantity, site_results.c.site == site, site_results.c.files_ok.is_(True))
-        q = _filters(q, lot, since).order_by(sessions.c.opened_at, sessions.c.session_id)
-        rows = [dict(r._mapping) for r in conn.execute(q)]
-    if f is not None:  # one value per (session, die): the one nearest the chosen frequency
-        best: dict[tuple[Any, ...], dict[str, Any]] = {}
-        for r in rows:
-            k = (r["session_id"], r["die_col"], r["die_row"])
-            if k not in best or abs(r["f_hz"] - f) < abs(best[k]["f_hz"] - f):
-                best[k] = r
-        rows = list(best.values())
+        values = conn.execute(q).tuples().all()
+        meta = {r[0]: r for r in conn.execute(_filters(select(
+            sessions.c.session_id, sessions.c.lot, sessions.c.wafer, sessions.c.opened_at), lot, since)).tuples()}
+    best: dict[tuple[Any, ...], tuple[Any, ...]] = {}
+    for v in values:  # one value per (session, die): the one nearest the chosen frequency
+        k = (v[0], v[1], v[2])
+        if v[0] in meta and (k not in best or (f is not None and abs(v[4] - f) < abs(best[k][4] - f))):
+            best[k] = v
+    order = sorted(best.values(), key=lambda v: (meta[v[0]][3] or datetime.min, v[0], v[1], v[2]))
+    rows = [{"session_id": v[0], "lot": meta[v[0]][1], "wafer": meta[v[0]][2], "opened_at": meta[v[0]][3],
+             "die_col": v[1], "die_row": v[2], "value": v[3], "f_hz": v[4] if f is not None else None}
+            for v in order]
     if not rows:
         raise CatalogError(f"{quantity} of site {site}: no kept landings with this figure in the catalog")
     return Trend(quantity, site, unit, f, rows)

@@ -122,6 +122,18 @@ def _line_section(cat: Catalog, lot: str | None, since: datetime | None) -> str:
     return "\n".join(parts)
 
 
+def _yield_pivot(ys: list[dict[str, Any]]) -> str:
+    sites = sorted({y["site"] for y in ys})
+    rows: dict[str, list[Any]] = {}
+    for y in ys:
+        row = rows.setdefault(y["session_id"], [y["lot"], y["wafer"], _day(y["opened_at"])] + [None] * len(sites))
+        extra = ", ".join(f"{k} {y[c]}" for k, c in (("fail", "fail"), ("af", "accepted_fail"), ("skip", "skipped"))
+                          if y[c])
+        cell = _pct(y["yield"]) + (f" ({extra})" if extra else "")
+        row[3 + sites.index(y["site"])] = _Raw(f'<span class="bad">{_e(cell)}</span>') if extra else cell
+    return _table(["lot", "wafer", "opened", *sites], list(rows.values()), set(range(3, 3 + len(sites))))
+
+
 def build_report(cat: Catalog, lot: str | None = None, since: datetime | None = None) -> str:
     """The page as a string."""
     ss = list_sessions(cat, lot, since)
@@ -144,12 +156,10 @@ def build_report(cat: Catalog, lot: str | None = None, since: datetime | None = 
     out += ["<h2>Pad-free line figures and their trends across wafers</h2>",
             '<p class="note">Two-line method (probelog.lines.gamma_two_lines): the same line type, width, gap '
             "and metal at two lengths on a die; free of the GSG pads.</p>", _line_section(cat, lot, since)]
-    ys = yield_table(cat, lot, since)
     out += ["<h2>Yield per site and wafer</h2>",
-            '<p class="note">fail: given up after re-landings; acc-fail: accepted by the operator despite a FAIL.</p>',
-            _table(["lot", "wafer", "site", "pass", "warn", "fail", "acc-fail", "skip", "yield"],
-                   [[y["lot"], y["wafer"], y["site"], y["pass"], y["warn"], y["fail"], y["accepted_fail"],
-                     y["skipped"], _pct(y["yield"])] for y in ys], set(range(3, 9)))]
+            '<p class="note">One row a session, one column a site: share of decided dies that passed or warned; '
+            "then fail (given up after re-landings), af (accepted by the operator despite a FAIL), skip.</p>",
+            _yield_pivot(yield_table(cat, lot, since))]
     ws = wear(cat, lot, since)
     out += ["<h2>Probe wear</h2>", _table(
         ["probe", "sessions", "touchdowns", "wear limit", "used", "first", "last"],
