@@ -148,9 +148,9 @@ def trend(cat: Catalog, quantity: str, site: str, at_hz: float | None = None,
             q = select(checks.c.session_id, site_results.c.die_col, site_results.c.die_row, checks.c.value,
                        checks.c.at_hz).select_from(j) \
                 .where(checks.c.name == quantity, site_results.c.site == site, site_results.c.files_ok.is_(True))
-        values = conn.execute(q).tuples().all()
+        values = conn.execute(q).all()
         meta = {r[0]: r for r in conn.execute(_filters(select(
-            sessions.c.session_id, sessions.c.lot, sessions.c.wafer, sessions.c.opened_at), lot, since)).tuples()}
+            sessions.c.session_id, sessions.c.lot, sessions.c.wafer, sessions.c.opened_at), lot, since))}
     best: dict[tuple[Any, ...], tuple[Any, ...]] = {}
     for v in values:  # one value per (session, die): the one nearest the chosen frequency
         k = (v[0], v[1], v[2])
