@@ -61,8 +61,8 @@ def population(f_hz: np.ndarray, s: np.ndarray, history: Sequence[tuple[str, np.
     port count are left out. ``unc`` (n,) is the cal's uncertainty, linear."""
     limits = limits or Limits()
     f_hz = np.asarray(f_hz, dtype=float)
-    usable = [(lab, x) for lab, f, x in history
-              if x.shape == s.shape and np.allclose(f, f_hz, rtol=1e-9, atol=0.0)]
+    usable = [(lab, x) for lab, f, x in history  # same grid: equal arrays first, the cheap test
+              if x.shape == s.shape and (np.array_equal(f, f_hz) or np.allclose(f, f_hz, rtol=1e-9, atol=0.0))]
     need = max(1, int(limits.population_min))
     if len(usable) < need:
         return CheckResult("population", Verdict.NA, None, None, None,
@@ -70,8 +70,7 @@ def population(f_hz: np.ndarray, s: np.ndarray, history: Sequence[tuple[str, np.
                            f"{need} needed to judge against earlier dies")
     stack = np.stack([x for _, x in usable])
     u = np.zeros(len(f_hz)) if unc is None else np.asarray(unc, float)
-    _, spread = centre_and_spread(stack, limits.population_floor + limits.population_floor_per_hz * f_hz + u)
-    centre = np.median(stack.real, axis=0) + 1j * np.median(stack.imag, axis=0)
+    centre, spread = centre_and_spread(stack, limits.population_floor + limits.population_floor_per_hz * f_hz + u)
     with np.errstate(invalid="ignore", divide="ignore"):
         z = np.abs(s - centre) / spread
     flat = np.where(np.isnan(z), np.inf, z).reshape(len(f_hz), -1)
