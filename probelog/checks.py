@@ -35,6 +35,9 @@ CHECK_NAMES = (
     "symmetry",
     "rotation",
     "line-window",
+    "line-z0",
+    "line-loss",
+    "line-eps-eff",
     "repeatability",
     "population",
     "drift",
@@ -546,7 +549,8 @@ def line_window_figures(
 
 
 def line_window(
-    f_hz: np.ndarray, s: np.ndarray, expectation: Mapping[str, Any], limits: Limits, z0_ref: float = 50.0
+    f_hz: np.ndarray, s: np.ndarray, expectation: Mapping[str, Any], limits: Limits, z0_ref: float = 50.0,
+    figures: dict[str, dict[str, Any]] | None = None,
 ) -> CheckResult:
     """Re(Z0) (ohm), loss (dB/mm) and eps_eff from :func:`probelog.lines.metrics_from_s`
     inside the plan's windows (``z0_window_ohm``, ``alpha_db_per_mm_max``,
@@ -561,7 +565,7 @@ def line_window(
         return _na("line-window", "no length_um for this site: line metrics not judged")
     if not any(expectation.get(pk) is not None for _, _, _, pk in _WINDOW_QUANTITIES):
         return _na("line-window", "no window for this site in the plan")
-    figs = line_window_figures(f_hz, s, expectation, limits, z0_ref)
+    figs = figures if figures is not None else line_window_figures(f_hz, s, expectation, limits, z0_ref)
     if not figs:
         return _na("line-window", "no frequency point inside the plan's band and away from a half-wavelength resonance")
 
@@ -579,6 +583,31 @@ def line_window(
                        f"[{all_text}]", worst["unit"])
     return _result("line-window", Verdict.PASS, worst["value"], limit, worst["at_hz"],
                    f"inside the plan's windows: {all_text}", worst["unit"])
+
+
+_FIGURE_CHECKS = {"z0_re_ohm": "line-z0", "alpha_db_per_mm": "line-loss", "eps_eff": "line-eps-eff"}
+
+
+def window_quantities(figures: dict[str, dict[str, Any]]) -> list[CheckResult]:
+    """One check per windowed quantity (``line-z0``, ``line-loss``, ``line-eps-eff``):
+    the figure, the bound it is nearest to (or crossed), the frequency and a
+    sentence with unit and both bounds, so the screen, the manifest (one column
+    each) and the report carry Z0, loss and eps_eff side by side."""
+    out = []
+    for key, d in figures.items():
+        u = f" {d['unit']}" if d["unit"] else ""
+        v = d["value"]
+        nearer_lo = v is not None and abs(v - d["lo"]) < abs(v - d["hi"])
+        limit = d["lo"] if nearer_lo else d["hi"]
+        text = "not finite" if v is None else f"{v:.4g}{u}"
+        where = f"{text} at {_ghz(d['at_hz'])}, window {d['lo']:.4g}..{d['hi']:.4g}{u}"
+        if d["inside"]:
+            out.append(_result(_FIGURE_CHECKS[key], Verdict.PASS, v, limit, d["at_hz"],
+                               f"{d['quantity']} inside the window (closest call {where})", d["unit"]))
+        else:
+            out.append(_result(_FIGURE_CHECKS[key], Verdict.FAIL, v, limit, d["at_hz"],
+                               f"{d['quantity']} outside the window: {where}", d["unit"]))
+    return out
 
 
 # ---------------------------------------------------------------- repeatability and drift
@@ -690,7 +719,9 @@ def run_checks(ntwk, kind: str, limits: Limits, expectation: dict | None = None,
     if kind in ROTATING_KINDS:
         out.append(rotation(f, s, limits, unc))
     if kind == "line":
-        out.append(line_window(f, s, expectation, limits, z0))
+        figures = line_window_figures(f, s, expectation, limits, z0) if s.shape[1] >= 2 else {}
+        out.append(line_window(f, s, expectation, limits, z0, figures))
+        out.extend(window_quantities(figures))
     if previous is not None:
         rep = repeatability(f, s, previous.f, previous.s, limits, unc, previous_label)
         if previous_other_die and rep.verdict is Verdict.FAIL:

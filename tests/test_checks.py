@@ -299,8 +299,17 @@ def test_run_checks_picks_by_kind(f, med):
     line = med.line(1.5e-3, "m")
     exp = {"length_um": 1500.0, "z0_window_ohm": [45.0, 55.0], "symmetric": True}
     names = [r.name for r in run_checks(line, "line", LIM, exp, previous=line, reference=line)]
-    assert names == ["contact", "passivity", "reciprocity", "symmetry", "line-window", "repeatability", "drift"]
+    assert names == ["contact", "passivity", "reciprocity", "symmetry", "line-window", "line-z0", "repeatability",
+                     "drift"]
     assert set(names) <= set(CHECK_NAMES)
+    # every windowed quantity is its own check, named with its unit and both bounds
+    full = dict(exp, eps_eff_window=[5.5, 6.5], alpha_db_per_mm_max=0.3)
+    by = {r.name: r for r in run_checks(line, "line", LIM, full)}
+    assert {"line-z0", "line-loss", "line-eps-eff"} <= set(by)
+    assert by["line-z0"].unit == "ohm" and "45..55 ohm" in by["line-z0"].message
+    assert by["line-loss"].unit == "dB/mm" and "0..0.3 dB/mm" in by["line-loss"].message
+    narrow = dict(full, eps_eff_window=[6.5, 7.0])  # the line's eps_eff (6, REFERENCES.md) is below it
+    assert {r.name: r for r in run_checks(line, "line", LIM, narrow)}["line-eps-eff"].verdict is Verdict.FAIL
     opens = [r.name for r in run_checks(pair(med.open()), "open", LIM)]
     assert opens == ["contact", "passivity", "reciprocity", "symmetry", "rotation"]
     one_port = run_checks(med.shunt_capacitor(10e-15) ** med.open(), "open", LIM)

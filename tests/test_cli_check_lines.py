@@ -48,7 +48,8 @@ def test_check_json_on_a_good_line(files, capsys):
     doc = json.loads(out)
     assert doc["file"].endswith("ln-1500.s2p") and doc["kind"] == "line" and doc["verdict"] == "pass"
     names = [c["name"] for c in doc["checks"]]
-    assert names == ["contact", "passivity", "reciprocity", "symmetry", "line-window"]
+    # line-z0: the windowed quantity on its own (one manifest column each, issue 10)
+    assert names == ["contact", "passivity", "reciprocity", "symmetry", "line-window", "line-z0"]
     for c in doc["checks"]:
         assert {"name", "verdict", "value", "limit", "at_hz", "message"} <= set(c)
     window = doc["checks"][-1]
