@@ -324,6 +324,7 @@ class SessionClosed(_Record, frozen=True):
     TYPE: ClassVar[str] = "session-closed"
     completed: bool = False
     summary: dict[str, Any] | str | None = None  # the engine writes a dict of counts
+    cause: str | None = None  # why a run stopped early: a signal name or "broken pipe"
 
 
 @dataclass(frozen=True)

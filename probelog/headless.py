@@ -17,7 +17,7 @@ from __future__ import annotations
 import sys
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TextIO
+from typing import Callable, TextIO
 
 from probelog.session import (
     Engine,
@@ -91,11 +91,14 @@ def _fmt_checks(outcome) -> str:
 
 
 def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
-                 close: bool = True) -> Summary:
+                 close: bool = True, stop: Callable[[], str | None] | None = None) -> Summary:
     """Drive ``engine`` to the end of its plan with the policy above.
 
     ``retries``: re-landings of a failed site before giving up (>= 0). Closes the
     session (``session-closed``) when ``close`` is true; never closes the bench.
+    ``stop`` is asked before every step: a cause (e.g. "SIGTERM") ends the run
+    there, the step before it finished and journaled; the close (probes
+    separated) journals that cause unless the plan was complete anyway.
     """
     if retries < 0:
         raise ValueError(f"retries must be >= 0, got {retries}")
@@ -130,6 +133,9 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
         return False
     try:
         while engine.phase is not Phase.DONE:
+            if stop is not None and stop() is not None:
+                printer.line(f"stopping: {stop()}")
+                break
             phase = engine.phase
             if phase is Phase.CALIBRATING and engine.next_step is None:
                 cal = engine.compute_calibration()
@@ -212,7 +218,7 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
                       counts["landings"], counts["relands"], counts["errors"], counts["recals"],
                       engine.session_dir, summary_d["accepted_despite_fail"])
     if close:
-        engine.close(completed)
+        engine.close(completed, cause=None if completed or stop is None else stop())
     despite = f", {summary.accepted_despite_fail} accepted despite FAIL" if summary.accepted_despite_fail else ""
     printer.line(f"done: {summary.accepted} accepted{despite}, {summary.failed} failed, {summary.skipped} skipped; "
                  f"{summary.relands} re-landings, {summary.instrument_errors} instrument errors, "

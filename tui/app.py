@@ -218,7 +218,8 @@ class ProbelogApp(App[int]):
     @work(thread=True, exclusive=True, exit_on_error=False, group="closing", description="Closing the journal")
     def close_engine(self) -> None:
         engine = self.engine
-        engine.close()
+        cause = getattr(self, "close_cause", None)  # a signal's name, set by probelog.tui.interrupts
+        engine.close(cause=cause) if cause else engine.close()
         bench = getattr(engine, "bench", None)
         if bench is not None:
             bench.close()
@@ -259,8 +260,16 @@ def build_app(engine_factory: EngineFactory, *, show_cautions: bool = True,
 
 def run_app(engine_factory: EngineFactory, *, intake: SessionRequest | None = None) -> int:
     """Run the app in this terminal until the journal is closed; the exit code."""
+    from probelog.tui.interrupts import report, ui_signals
+
     app = build_app(engine_factory, intake=intake)
-    result = app.run()
+    with ui_signals(app) as stop:  # SIGTERM, SIGHUP (terminal closed): close the session, then exit
+        result = app.run()
+    if stop.cause is not None:
+        where = getattr(app.engine, "session_dir", None)
+        report(f"probelog: stopped by {stop.cause}; the session was closed as interrupted"
+               + (f", resume with --resume {where}" if where else ""))
+        return stop.exit_code
     if app.return_code not in (None, 0):
         return int(app.return_code)
     return int(result or 0)

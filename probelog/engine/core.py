@@ -48,6 +48,7 @@ class EngineCore:
         self._configured = False
         self._reopen_vna = False
         self._drift_requested = False
+        self._walk_cursor = (0, 0)  # (walk start, sequence offset the last next_step stopped at)
         self._touchdowns: dict[str, int] = dict.fromkeys(view.probe_ids(), 0)
         self._phase = Phase.CALIBRATING if view.has_cal() else Phase.PROBING
         self._calsets: dict[str, Any] = {}  # cal_id -> solved cal set (kept in memory once read)

@@ -165,7 +165,7 @@ class Engine(Policy):
     def wafer_status(self) -> dict[tuple[int, int], str]:
         """Die -> todo / partial / done / skipped / failed / accepted-despite-fail."""
         names = [s.name for s in self.plan.sequence_sites]
-        return {die: self.state.die_status(die, names) for die in self.plan.dies_in_order()}
+        return {die: self.state.die_status(die, names) for die in self.plan.iter_dies()}
 
     def summary(self) -> dict[str, Any]:
         return self.state.summary(len(self.view.sequence))
@@ -263,14 +263,16 @@ class Engine(Policy):
             e = self._append(ev.Note(text=text, die=pos[0] if pos else None, site=pos[1] if pos else None))
             self._emit(NoteAdded(seq=e.seq, text=text))
 
-    def close(self, completed: bool | None = None) -> None:
-        """Journal ``session-closed`` (completed defaults to: plan finished), close
-        the journal. Does not close the bench: whoever built it closes it."""
+    def close(self, completed: bool | None = None, cause: str | None = None) -> None:
+        """Separate the probes, journal ``session-closed`` (completed defaults to:
+        plan finished; ``cause`` says why a run stopped early, e.g. "SIGTERM" or
+        "broken pipe"), close the journal. Does not close the bench: whoever
+        built it closes it."""
         if completed is None:
             completed = self._phase is Phase.DONE
         try:
             self._safe_separate()
-            e = self._append(ev.SessionClosed(completed=bool(completed), summary=self.summary()))
+            e = self._append(ev.SessionClosed(completed=bool(completed), summary=self.summary(), cause=cause))
             self._emit(SessionClosed(seq=e.seq, completed=bool(completed)))
             self._checkpoint()
         finally:

@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Any
 
 from probelog.bench import Die
+from probelog.engine.sequence import SiteSequence
 from probelog.engine.types import EngineError
 
 
@@ -22,8 +23,8 @@ class PlanView:
         self._kit: Any = None
         self._required: list[tuple[str, str]] | None = None
         self._limits: Any = None
-        self.sequence: list[tuple[Die, Any]] = [(die, site) for die in plan.dies_in_order()
-                                                 for site in plan.sequence_sites]
+        # computed on demand: a 1000 x 1000 grid is never a list of its million dies
+        self.sequence = SiteSequence(plan)
 
     @property
     def name(self) -> str:
@@ -110,9 +111,9 @@ class PlanView:
 
     def die_start(self, die: Die) -> int:
         """Index of the die's first site in the sequence; EngineError if not planned."""
-        for i, (d, _) in enumerate(self.sequence):
-            if d == die:
-                return i
+        i = self.sequence.die_start(die)
+        if i is not None:
+            return i
         raise EngineError(f"plan {self.name!r}: die {die[0]},{die[1]} is not in the plan's die list")
 
 

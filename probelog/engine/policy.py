@@ -56,7 +56,7 @@ class Policy(Walk):
             die = die_of(die)
             reason = need_reason(reason, f"skip die {die[0]},{die[1]}")
             self.view.die_start(die)
-            sites = [s.name for d, s in self.view.sequence if d == die and not self.state.is_finished(d, s.name)]
+            sites = [s.name for d, s in self.view.sequence.die_items(die) if not self.state.is_finished(d, s.name)]
             if not sites:
                 raise EngineError(f"die {die[0]},{die[1]}: every site is already decided; nothing to skip")
             before = self._phase

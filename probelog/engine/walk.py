@@ -36,11 +36,16 @@ class Walk(CalStep):
         seq = self.view.sequence
         n = len(seq)
         start = self.view.die_start(s.walk_die) if s.walk_die is not None else 0
-        for i in (k % n for k in range(start, start + n)):
-            die, site = seq[i]
+        # A decided site stays decided, so the scan goes on from where it last
+        # stopped for this start (one step per call, not the whole walk so far).
+        first = self._walk_cursor[1] if self._walk_cursor[0] == start else start
+        for k in range(first, start + n):
+            die, site = seq[k % n]
             if not s.is_finished(die, site.name):
+                self._walk_cursor = (start, k)
                 return Step(StepKind.SITE, die, site.name, site.kind,
-                            s.landing_count(die, site.name) + 1, i, n)
+                            s.landing_count(die, site.name) + 1, k % n, n)
+        self._walk_cursor = (start, start + n)
         return None
 
     @property
@@ -66,7 +71,7 @@ class Walk(CalStep):
             self._require_phase(Phase.PROBING)
             die = (int(die[0]), int(die[1]))
             self.view.die_start(die)
-            if all(self.state.is_finished(d, s.name) for d, s in self.view.sequence if d == die):
+            if all(self.state.is_finished(d, s.name) for d, s in self.view.sequence.die_items(die)):
                 raise EngineError(f"die {die[0]},{die[1]}: every site is already decided; nothing left to land on")
             e = self._append(ev.Goto(die=die, reason=(reason or "").strip()))
             self._emit(JumpedToDie(seq=e.seq, die=die, reason=(reason or "").strip()))

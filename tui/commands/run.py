@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+from typing import TextIO, cast
 
 HELP = "run a probing session from a plan (or --resume one), in the UI or --headless"
 
@@ -71,29 +72,47 @@ def run(args: argparse.Namespace) -> int:
         return run_app(engine_factory)
 
     from probelog.headless import run_headless
+    from probelog.tui.interrupts import GuardedOutput, StopRequest, report, stop_on_signals, stopped_line
 
-    try:
-        engine = engine_factory()
-    except (EngineError, JournalError) as exc:
-        raise UsageError(str(exc)) from None
-    if os.environ.get(TRACE_ACKS_ENV) == "1":
-        _trace_acks(engine)
-    try:
-        summary = run_headless(engine, retries=args.retries, out=sys.stdout)
-    except EngineError as exc:  # e.g. a cal standard that cannot be measured
-        print(f"probelog run: stopped: {exc}; resume with --resume {engine.session_dir}", file=sys.stderr)
-        engine.close(False)
-        return 1
-    except JournalError as exc:  # e.g. a full disk: what was journaled stays, the rest is redone
-        print(f"probelog run: stopped: {exc}; resume with --resume {engine.session_dir}", file=sys.stderr)
+    # SIGINT, SIGTERM, SIGHUP and a closed stdout stop the run between two steps,
+    # with the probes separated and the cause journaled (probelog.tui.interrupts).
+    stop = StopRequest()
+    with stop_on_signals(stop):
         try:
-            engine.close(False)
-        except JournalError:  # still no space for session-closed; resume does without it
-            pass
-        return 1
-    finally:
-        engine.bench.close()
+            engine = engine_factory()
+        except (EngineError, JournalError) as exc:
+            raise UsageError(str(exc)) from None
+        if os.environ.get(TRACE_ACKS_ENV) == "1":
+            _trace_acks(engine)
+        try:
+            out = cast(TextIO, GuardedOutput(sys.stdout, stop))  # a text stream in all but name
+            summary = run_headless(engine, retries=args.retries, out=out, stop=stop)
+        except EngineError as exc:  # e.g. a cal standard that cannot be measured
+            report(f"probelog run: stopped: {exc}; resume with --resume {engine.session_dir}")
+            engine.close(False, cause=stop.cause)
+            return 1
+        except JournalError as exc:  # e.g. a full disk: what was journaled stays, the rest is redone
+            report(f"probelog run: stopped: {exc}; resume with --resume {engine.session_dir}")
+            try:
+                engine.close(False, cause=stop.cause)
+            except JournalError:  # still no space for session-closed; resume does without it
+                pass
+            return 1
+        finally:
+            separated = not _in_contact(engine.bench)
+            engine.bench.close()
+    if stop.cause is not None and not summary.completed:
+        report(stopped_line(stop, engine.session_dir, separated))
+        return stop.exit_code
     return summary.exit_code
+
+
+def _in_contact(bench) -> bool:
+    """The prober driver's own record of the probes being down (True if it cannot tell)."""
+    try:
+        return bool(bench.prober.in_contact)
+    except Exception:  # a prober that broke mid-run: assume the worst, say so
+        return True
 
 
 # Opt-in, for the crash trials (tests/test_crash_resume.py): with this set to 1
