@@ -20,14 +20,23 @@ from __future__ import annotations
 import csv
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Sequence
+from typing import TYPE_CHECKING, Any, Sequence, cast
 
 import numpy as np
+from numpy.typing import NDArray
+
+if TYPE_CHECKING:  # calibration imports this module
+    import skrf
+
+    from probelog.calibration import CalSet
+
+C128 = NDArray[np.complex128]  # S and T matrices (..., 2, 2)
+F64 = NDArray[np.float64]
 
 _IJ = ((0, 0), (0, 1), (1, 0), (1, 1))
 
 
-def _s2t(s: np.ndarray) -> np.ndarray:
+def _s2t(s: C128) -> C128:
     """S (..., 2, 2) -> cascading T with [a1, b1]^T = T [b2, a2]^T."""
     s11, s12, s21, s22 = s[..., 0, 0], s[..., 0, 1], s[..., 1, 0], s[..., 1, 1]
     det = s11 * s22 - s12 * s21
@@ -37,7 +46,7 @@ def _s2t(s: np.ndarray) -> np.ndarray:
     return t
 
 
-def _t2s(t: np.ndarray) -> np.ndarray:
+def _t2s(t: C128) -> C128:
     s = np.empty_like(t)
     s[..., 0, 0] = t[..., 1, 0] / t[..., 0, 0]
     s[..., 0, 1] = np.linalg.det(t) / t[..., 0, 0]
@@ -46,7 +55,7 @@ def _t2s(t: np.ndarray) -> np.ndarray:
     return s
 
 
-def error_boxes(terms8: dict[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+def error_boxes(terms8: dict[str, C128]) -> tuple[C128, C128]:
     """Port error boxes X, Y (n_freq, 2, 2) from scikit-rf 8-term coefficients.
 
     Raw (switch-corrected) M = X ** S ** Y; X = [[e00, e01], [e10, e11]],
@@ -68,17 +77,16 @@ def error_boxes(terms8: dict[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
     return x, y
 
 
-def difference_boxes(terms_a: dict[str, np.ndarray], terms_b: dict[str, np.ndarray]
-                     ) -> tuple[np.ndarray, np.ndarray]:
+def difference_boxes(terms_a: dict[str, C128], terms_b: dict[str, C128]) -> tuple[C128, C128]:
     """D1 = inv(X_B) X_A and D2 = Y_A inv(Y_B) as S-matrices (n_freq, 2, 2)."""
     xa, ya = error_boxes(terms_a)
     xb, yb = error_boxes(terms_b)
-    d1 = np.linalg.solve(_s2t(xb), _s2t(xa))
+    d1 = cast(C128, np.linalg.solve(_s2t(xb), _s2t(xa)))  # numpy's stubs widen it to complexfloating
     d2 = _s2t(ya) @ np.linalg.inv(_s2t(yb))
     return _t2s(d1), _t2s(d2)
 
 
-def cascade(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+def cascade(a: C128, b: C128) -> C128:
     """A ** B (port 2 of A to port 1 of B) of S-matrices (..., 2, 2), Redheffer star."""
     den = 1 - a[..., 1, 1] * b[..., 0, 0]
     out = np.empty(np.broadcast_shapes(a.shape, b.shape), dtype=complex)
@@ -89,7 +97,7 @@ def cascade(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return out
 
 
-def _unitary(p: np.ndarray) -> np.ndarray:
+def _unitary(p: F64) -> C128:
     """Unitary 2x2 S from parameters p[..., (t, a, b, psi)] in radians."""
     t, a, b, psi = p[..., 0], p[..., 1], p[..., 2], p[..., 3]
     c, s, e = np.cos(t), np.sin(t), np.exp(1j * psi)
@@ -101,7 +109,7 @@ def _unitary(p: np.ndarray) -> np.ndarray:
     return u
 
 
-def _err(d1: np.ndarray, d2: np.ndarray, p: np.ndarray) -> np.ndarray:
+def _err(d1: C128, d2: C128, p: F64) -> F64:
     """|S'_ij - S_ij| for unitary S(p): d1, d2 (n, 1, 2, 2), p (n, K, 4) -> (n, K, 2, 2)."""
     s = _unitary(p)
     return np.abs(cascade(cascade(d1, s), d2) - s)
@@ -112,7 +120,7 @@ def _err(d1: np.ndarray, d2: np.ndarray, p: np.ndarray) -> np.ndarray:
 _FREQ_CHUNK = 256
 
 
-def agreement_bound(d1: np.ndarray, d2: np.ndarray, grid: int = 12, refine: int = 30) -> np.ndarray:
+def agreement_bound(d1: C128, d2: C128, grid: int = 12, refine: int = 30) -> F64:
     """B_ij = sup over passive S of |(D1 ** S ** D2)_ij - S_ij|, shape (n_freq, 2, 2).
 
     d1, d2: S-matrices of the difference boxes, (n_freq, 2, 2) or (2, 2).
@@ -166,8 +174,8 @@ class Agreement:
 
     cal_a: str
     cal_b: str
-    f_hz: np.ndarray
-    bound: np.ndarray
+    f_hz: F64
+    bound: F64
     worst: float
     at_hz: float
     worst_sij: str
@@ -188,7 +196,7 @@ class Agreement:
         return path
 
 
-def agreement(cal_a: Any, cal_b: Any, raw_standards: Sequence[Any] | None = None) -> Agreement:
+def agreement(cal_a: CalSet, cal_b: CalSet, raw_standards: Sequence[skrf.Network] | None = None) -> Agreement:
     """Compare two cal sets (probelog.calibration.CalSet) solved on the same sweep.
 
     The difference boxes come from both cal sets' 8-term error terms; when raw
