@@ -14,12 +14,16 @@ from dataclasses import dataclass
 
 import numpy as np
 import skrf
+from numpy.typing import ArrayLike, NDArray
 
 C0 = 299_792_458.0
 """Speed of light in vacuum, m/s."""
 
-DB_PER_NP = 20.0 / np.log(10.0)
+DB_PER_NP: float = 20.0 / np.log(10.0)
 """dB per neper (20 log10 e = 8.6859)."""
+
+F64 = NDArray[np.float64]
+C128 = NDArray[np.complex128]
 
 
 @dataclass(frozen=True)
@@ -32,54 +36,54 @@ class LineMetrics:
     When z0 is unknown (two-line gamma alone) z0 and R, L, G, C are NaN.
     """
 
-    f_hz: np.ndarray
-    z0: np.ndarray
-    gamma: np.ndarray
+    f_hz: F64
+    z0: C128
+    gamma: C128
 
     @property
-    def alpha_np_per_m(self) -> np.ndarray:
+    def alpha_np_per_m(self) -> F64:
         return self.gamma.real
 
     @property
-    def alpha_db_per_mm(self) -> np.ndarray:
+    def alpha_db_per_mm(self) -> F64:
         return DB_PER_NP * self.gamma.real / 1000.0
 
     @property
-    def beta_rad_per_mm(self) -> np.ndarray:
+    def beta_rad_per_mm(self) -> F64:
         return self.gamma.imag / 1000.0
 
     @property
-    def eps_eff(self) -> np.ndarray:
+    def eps_eff(self) -> F64:
         return (self.gamma.imag * C0 / (2.0 * np.pi * self.f_hz)) ** 2
 
     @property
-    def _series(self) -> np.ndarray:
+    def _series(self) -> C128:
         with np.errstate(invalid="ignore"):
             return self.gamma * self.z0  # R + j omega L
 
     @property
-    def _shunt(self) -> np.ndarray:
+    def _shunt(self) -> C128:
         with np.errstate(invalid="ignore", divide="ignore"):
             return self.gamma / self.z0  # G + j omega C
 
     @property
-    def r_ohm_per_m(self) -> np.ndarray:
+    def r_ohm_per_m(self) -> F64:
         return self._series.real
 
     @property
-    def l_h_per_m(self) -> np.ndarray:
+    def l_h_per_m(self) -> F64:
         return self._series.imag / (2.0 * np.pi * self.f_hz)
 
     @property
-    def g_s_per_m(self) -> np.ndarray:
+    def g_s_per_m(self) -> F64:
         return self._shunt.real
 
     @property
-    def c_f_per_m(self) -> np.ndarray:
+    def c_f_per_m(self) -> F64:
         return self._shunt.imag / (2.0 * np.pi * self.f_hz)
 
     @property
-    def q(self) -> np.ndarray:
+    def q(self) -> F64:
         with np.errstate(divide="ignore", invalid="ignore"):
             return self.gamma.imag / (2.0 * self.gamma.real)
 
@@ -99,7 +103,7 @@ JSON_KEYS = (
 )
 
 
-def abcd_from_s(s: np.ndarray, z0: float = 50.0) -> np.ndarray:
+def abcd_from_s(s: C128, z0: float = 50.0) -> C128:
     """ABCD matrices of 2-ports from S referenced to a real ``z0`` (ohm).
 
     Pozar 4th ed. Table 4.2. ``s`` has shape (n, 2, 2); returns (n, 2, 2), B in
@@ -114,7 +118,7 @@ def abcd_from_s(s: np.ndarray, z0: float = 50.0) -> np.ndarray:
     return np.stack([np.stack([a, b], -1), np.stack([c, dd], -1)], -2)
 
 
-def t_from_s(s: np.ndarray) -> np.ndarray:
+def t_from_s(s: C128) -> C128:
     """Wave-cascading (T) matrices of 2-ports, cascading as T1 @ T2 (scikit-rf's
     convention), vectorised over the first axis."""
     s11, s12, s21, s22 = s[:, 0, 0], s[:, 0, 1], s[:, 1, 0], s[:, 1, 1]
@@ -125,7 +129,7 @@ def t_from_s(s: np.ndarray) -> np.ndarray:
     return np.stack([np.stack([t11, t12], -1), np.stack([t21, t22], -1)], -2)
 
 
-def _branch(gl: np.ndarray, f_hz: np.ndarray, length_m: float, eps_eff_guess: float | None) -> np.ndarray:
+def _branch(gl: C128, f_hz: F64, length_m: float, eps_eff_guess: float | None) -> C128:
     """Put beta*l (imaginary part of principal-valued gl) on a continuous branch.
 
     The phase is unwrapped over frequency, then offset by 2 pi n: with an
@@ -144,10 +148,11 @@ def _branch(gl: np.ndarray, f_hz: np.ndarray, length_m: float, eps_eff_guess: fl
     else:
         offset = 0.0 if phase[0] >= 0 else 2.0 * np.pi
     n = np.round(offset / (2.0 * np.pi))
-    return gl.real + 1j * (phase + 2.0 * np.pi * n)
+    branch: C128 = gl.real + 1j * (phase + 2.0 * np.pi * n)  # offset is float or numpy scalar: the stubs say Any
+    return branch
 
 
-def _network_s_50(ntwk: skrf.Network) -> tuple[np.ndarray, float]:
+def _network_s_50(ntwk: skrf.Network) -> tuple[C128, float]:
     if ntwk.nports != 2:
         raise ValueError(f"line metrics need a 2-port, got {ntwk.nports} port(s)")
     z0 = np.asarray(ntwk.z0)
@@ -160,7 +165,7 @@ def _network_s_50(ntwk: skrf.Network) -> tuple[np.ndarray, float]:
 
 
 def metrics_from_s(
-    f_hz: np.ndarray, s: np.ndarray, length_m: float, eps_eff_guess: float | None = None, z0_ref: float = 50.0
+    f_hz: ArrayLike, s: C128, length_m: float, eps_eff_guess: float | None = None, z0_ref: float = 50.0
 ) -> LineMetrics:
     """Z0, gamma and RLGC of a uniform line from its S (n_freq, 2, 2) referenced
     to a real ``z0_ref`` (ohm); ``length_m`` in metres. See :func:`line_metrics`."""
@@ -195,7 +200,7 @@ def gamma_two_lines(
     ntwk_b: skrf.Network,
     len_b_m: float,
     eps_eff_guess: float | None = None,
-) -> np.ndarray:
+) -> C128:
     """Propagation constant gamma (1/m) from two lines that differ only in length.
 
     The eigenvalues of T_b inv(T_a) are e^{+-gamma (l_b - l_a)}, free of the
@@ -222,7 +227,7 @@ def gamma_two_lines(
     return _branch(gdl, ntwk_a.f, dl, eps_eff_guess) / dl
 
 
-def metrics_from_gamma(f_hz: np.ndarray, gamma: np.ndarray, z0: np.ndarray | None = None) -> LineMetrics:
+def metrics_from_gamma(f_hz: ArrayLike, gamma: ArrayLike, z0: ArrayLike | None = None) -> LineMetrics:
     """Wrap a gamma (1/m) and optional Z0 (ohm) into :class:`LineMetrics`; an
     unknown Z0 becomes NaN, and so do R, L, G, C."""
     f_hz = np.asarray(f_hz, dtype=float)
@@ -230,7 +235,7 @@ def metrics_from_gamma(f_hz: np.ndarray, gamma: np.ndarray, z0: np.ndarray | Non
     return LineMetrics(f_hz=f_hz, z0=z0_arr, gamma=np.asarray(gamma, dtype=complex))
 
 
-def _columns(m: LineMetrics, idx: np.ndarray | slice) -> dict[str, np.ndarray]:
+def _columns(m: LineMetrics, idx: NDArray[np.intp] | slice) -> dict[str, F64]:
     return {
         "f_hz": m.f_hz[idx],
         "z0_re": m.z0.real[idx],
@@ -246,11 +251,11 @@ def _columns(m: LineMetrics, idx: np.ndarray | slice) -> dict[str, np.ndarray]:
     }
 
 
-def _jsonable(a: np.ndarray) -> list[float | None]:
+def _jsonable(a: F64) -> list[float | None]:
     return [float(x) if np.isfinite(x) else None for x in np.asarray(a, dtype=float)]
 
 
-def metrics_at(metrics: LineMetrics, freqs_hz) -> dict[str, list[float | None]]:
+def metrics_at(metrics: LineMetrics, freqs_hz: ArrayLike) -> dict[str, list[float | None]]:
     """Metrics at the measured points nearest to ``freqs_hz`` (Hz), as small
     lists keyed like :data:`JSON_KEYS`; ``f_hz`` holds the measured frequencies
     actually used. NaN and infinities become None (JSON null)."""
@@ -284,7 +289,7 @@ def valid_points(metrics: LineMetrics, length_m: float, min_sinh: float = 0.1, m
 ROUND_HZ = np.array([1, 5, 10, 20, 40, 67, 110, 170, 220, 325, 500]) * 1e9
 
 
-def default_frequencies(f_hz: np.ndarray, count: int = 5, prefer_round: bool = False) -> np.ndarray:
+def default_frequencies(f_hz: F64, count: int = 5, prefer_round: bool = False) -> F64:
     """Where to report line figures (Hz): ``count`` frequencies spread evenly from
     the first to the last point; with ``prefer_round``, the round frequencies
     inside the sweep (``ROUND_HZ``) when at least ``count`` of them fall there
