@@ -13,11 +13,15 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from probelog import events as ev
 from probelog import state as st
 from probelog.manifest import ChainStatus, SessionFormatError, chain_status, index_session, read_journal, read_manifest_csv
+
+if TYPE_CHECKING:  # both are imported lazily at run time (import probelog stays light)
+    import pandas as pd
+    import skrf
 
 
 @dataclass
@@ -32,23 +36,23 @@ class SessionData:
     """
 
     path: Path
-    manifest: list[dict]
+    manifest: list[dict[str, Any]]  # Any: CSV cell values
     events: list[ev.Event]
     chain: ChainStatus
     state: st.SessionState = field(default_factory=st.SessionState)
-    _networks: dict[int, Any] | None = field(default=None, repr=False)
+    _networks: dict[int, skrf.Network] | None = field(default=None, repr=False)
 
-    def to_pandas(self):
+    def to_pandas(self) -> pd.DataFrame:
         """The manifest as a pandas DataFrame (pandas comes with scikit-rf)."""
         import pandas as pd
 
         return pd.DataFrame.from_records(self.manifest)
 
-    def _all_networks(self) -> dict[int, Any]:
+    def _all_networks(self) -> dict[int, skrf.Network]:
         if self._networks is None:
             import skrf
 
-            nets = {}
+            nets: dict[int, skrf.Network] = {}
             for row in self.manifest:
                 rel = row.get("corrected_file") or row.get("raw_file")
                 if not rel:
@@ -64,7 +68,7 @@ class SessionData:
         """Site names with at least one kept sweep, in first-measured order."""
         return list(dict.fromkeys(r["site"] for r in self.manifest))
 
-    def networks(self, site: str, die: tuple[int, int] | None = None) -> list:
+    def networks(self, site: str, die: tuple[int, int] | None = None) -> list[skrf.Network]:
         """Kept sweeps of ``site`` (corrected, else raw) as skrf.Networks, in
         measurement order; only die (col, row) when ``die`` is given."""
         nets = self._all_networks()
