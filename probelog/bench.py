@@ -116,6 +116,7 @@ class Bench:
     prober: Prober
     description: str = ""
     on_close: list[Callable[[], None]] = field(default_factory=list)
+    kind: str = ""  # the command line's --bench word (sim or visa), journaled with session-opened
 
     def close(self) -> None:
         for closer in (self.vna.close, self.prober.close, *self.on_close):
