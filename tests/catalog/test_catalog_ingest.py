@@ -195,3 +195,24 @@ def test_concurrent_schema_creation(db_url):
     for t in ts:
         t.join(60)
     assert errors == []
+
+
+def test_an_older_schema_is_migrated_in_place(db_url, demo_sessions):
+    """A version-1 catalog (before the trend index) is brought to the current
+    version on open, its rows kept; the migration runs once."""
+    from sqlalchemy import inspect
+
+    from probelog.catalog.schema import IX_TREND
+
+    cat = open_catalog(db_url)
+    add_session(cat, demo_sessions[0])
+    with cat.begin() as conn:
+        IX_TREND.drop(conn)
+        conn.execute(catalog_schema.update().values(version=1))
+    cat.close()
+    cat = open_catalog(db_url)
+    with cat.engine.connect() as conn:
+        assert conn.execute(select(catalog_schema.c.version)).scalar_one() == SCHEMA_VERSION == 2
+        assert IX_TREND.name in {ix["name"] for ix in inspect(conn).get_indexes("site_results")}
+    assert _count(cat, sessions) == 1
+    cat.close()

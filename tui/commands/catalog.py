@@ -236,9 +236,12 @@ def with_catalog(url: str, engine_factory, on_open: bool = False):
     session is added to the catalog when the engine closes (and, with
     ``on_open``, also as soon as a resumed session opens). A failed add is said
     on stderr and never stops or fails the run: the session folder is the record."""
-    from probelog.catalog.db import CatalogError, open_catalog
     from probelog.tui.cli import UsageError
 
+    try:
+        from probelog.catalog.db import CatalogError, open_catalog
+    except ImportError as exc:
+        raise UsageError(f"--catalog needs {exc.name}: pip install 'probelog[catalog]'") from None
     try:
         open_catalog(url).close()
     except CatalogError as exc:
