@@ -42,18 +42,20 @@ def grow_journal(session_dir: Path, target: int) -> int:
         out.extend(raw + b"\n")
         prev = hashlib.sha256(raw).hexdigest()
 
-    col = 100  # dies off the plan's wafer: the walk does not reach them, the state counts them
+    # a 40 x 40 die grid off the plan's wafer (the walk does not reach it; the state
+    # counts it), six sites a die: 1,600 dies, as on a large wafer
+    visit = 0
     while seq < target:
-        die = (col, 0)
-        col += 1
+        die, site = (100 + visit % 40, (visit // 40) % 40), f"{landing.site}-{visit // 1600}"
+        visit += 1
         for n in range(1, 6):
             if seq >= target:
                 break
-            line(ev.Landing(die=die, site=landing.site, landing=n, kind=landing.kind, cal_id=landing.cal_id,
+            line(ev.Landing(die=die, site=site, landing=n, kind=landing.kind, cal_id=landing.cal_id,
                             raw=landing.raw, corrected=landing.corrected, checks=landing.checks,
                             verdict=landing.verdict, metrics=landing.metrics, touchdowns=landing.touchdowns))
             if seq < target:
-                line(ev.Decision(die=die, site=landing.site, landing=n, action=ev.RELAND if n < 5 else ev.ACCEPT,
+                line(ev.Decision(die=die, site=site, landing=n, action=ev.RELAND if n < 5 else ev.ACCEPT,
                                  reason="bench" if n < 5 else ""))
     with open(path, "ab") as fh:
         fh.write(out)

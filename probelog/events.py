@@ -40,7 +40,8 @@ class EventError(ValueError):
     """A journal line that is not a valid event of its type (names line and field)."""
 
 
-class _Record(msgspec.Struct, frozen=True, forbid_unknown_fields=True, omit_defaults=False):
+# gc=False: payloads never form reference cycles; not tracking them keeps long folds cheap.
+class _Record(msgspec.Struct, frozen=True, forbid_unknown_fields=True, omit_defaults=False, gc=False):
     """Base of every payload class: ``TYPE`` is the journal ``type`` string."""
 
     TYPE: ClassVar[str] = ""
@@ -49,14 +50,14 @@ class _Record(msgspec.Struct, frozen=True, forbid_unknown_fields=True, omit_defa
 # ---------------------------------------------------------------- pieces
 
 
-class FileRef(msgspec.Struct, frozen=True, forbid_unknown_fields=True):
+class FileRef(msgspec.Struct, frozen=True, forbid_unknown_fields=True, gc=False):
     """A data file: ``path`` relative to the session folder (POSIX), SHA-256 hex."""
 
     path: str
     sha256: str
 
 
-class Check(msgspec.Struct, frozen=True, forbid_unknown_fields=True):
+class Check(msgspec.Struct, frozen=True, forbid_unknown_fields=True, gc=False):
     """One check result as journaled; value / limit in ``unit``, ``at_hz`` in Hz."""
 
     name: str

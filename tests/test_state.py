@@ -288,3 +288,25 @@ def test_an_accepted_fail_shows_in_manifest_report_history_map_and_verify(tmp_pa
     assert "accept-despite-fail: lifted tip kept" in page
     assert cli_main(["verify", str(folder)]) == 0
     assert "2 accepted, 1 accepted despite FAIL, 0 skipped, 0 given up" in capsys.readouterr().out
+
+
+def test_resume_uses_the_journaled_kit_when_the_kit_file_is_gone(tmp_path):
+    """A plan given by a relative path, or a session folder moved to another
+    machine: the kit file is not where the plan says; the kit text journaled with
+    the cal lets the session resume (and recalibrate) all the same."""
+    kit = tmp_path / "kit.toml"
+    from tests._engine_fakes import KIT
+
+    kit.write_bytes(KIT.read_bytes())
+    plan = load_plan_text(plan_text().replace(str(KIT), str(kit)), "moved.toml")
+    e = S.Engine(plan, fake_bench(), Journal.create(tmp_path, "s1"), "t")
+    calibrate(e)
+    e.journal.close()
+    kit.unlink()
+    r = S.Engine.resume(tmp_path / "s1", fake_bench())
+    r.recalibrate("tips cleaned")
+    assert r.next_step.kind is S.StepKind.CAL_STANDARD  # the kit's standards, from the journal
+    r.journal.close()
+    fresh = load_plan_text(plan_text().replace(str(KIT), str(kit)), "moved.toml")
+    with pytest.raises(S.EngineError, match="kit.toml"):  # a new session still needs the file
+        S.Engine.new(fresh, fake_bench(), tmp_path / "sessions")

@@ -14,6 +14,7 @@ decision.
 
 from __future__ import annotations
 
+import gc
 import getpass
 from pathlib import Path
 from typing import Any
@@ -39,8 +40,8 @@ class Engine(Policy):
     """
 
     def __init__(self, plan: Any, bench: Bench, journal: Journal, operator: str = "", *,
-                 _state: st.SessionState | None = None) -> None:
-        super().__init__(validate(plan), bench, journal, operator)
+                 _state: st.SessionState | None = None, _kit_text: str | None = None) -> None:
+        super().__init__(validate(plan, _kit_text, resuming=_state is not None), bench, journal, operator)
         self._active_outcome: CalOutcome | None = None
         if _state is None:
             self._open_session()
@@ -81,8 +82,20 @@ class Engine(Policy):
         reference, switch terms, raw standards) is hash-checked first; then
         ``session-resumed`` is journaled.
         """
+        # Reading a long journal builds millions of small objects that never form
+        # cycles; the cyclic collector would walk them all again and again.
+        gc_was_on = gc.isenabled()
+        gc.disable()
         try:
-            journal = Journal.open(Path(session_dir))
+            return cls._resume(Path(session_dir), bench, operator)
+        finally:
+            if gc_was_on:
+                gc.enable()
+
+    @classmethod
+    def _resume(cls, session_dir: Path, bench: Bench, operator: str | None) -> "Engine":
+        try:
+            journal = Journal.open(session_dir)
         except JournalError as exc:
             raise EngineError(str(exc)) from None
         try:
@@ -97,7 +110,8 @@ class Engine(Policy):
                 plan = plan_from_opened(opened.plan_text, opened.plan_file, Path(session_dir))
             except ValueError as exc:
                 raise EngineError(f"{session_dir}: the plan in session-opened no longer loads: {exc}") from None
-            engine = cls(plan, bench, journal, opened.operator if operator is None else operator, _state=state)
+            engine = cls(plan, bench, journal, opened.operator if operator is None else operator, _state=state,
+                         _kit_text=_journaled_kit(records, str(journal.path)))
             checked = engine._check_files()
             engine._append(ev.SessionResumed(operator=engine.operator, login=_login(),
                                              probelog_version=_version(), checked_files=checked))
@@ -302,6 +316,17 @@ class Engine(Policy):
             probes=self.view.probe_ids(), bench={k: str(v) for k, v in bench_info.items()},
             settings=ev.Settings(start_hz=s.start_hz, stop_hz=s.stop_hz, points=s.points,
                                  ifbw_hz=s.ifbw_hz, power_dbm=s.power_dbm)))
+
+
+def _journaled_kit(records: list[Any], source: str) -> str | None:
+    """The kit text of the last ``cal-computed`` that carries one (schema 2)."""
+    decoder = ev.Decoder(source)
+    for r in reversed(records):
+        if r.type == "cal-computed":
+            data = decoder.payload(r.type, r.payload, r.seq)
+            if isinstance(data, ev.CalComputed) and data.kit_text is not None:
+                return data.kit_text
+    return None
 
 
 def _version() -> str:

@@ -18,8 +18,9 @@ from probelog.engine.types import EngineError
 class PlanView:
     """Read-only questions about one loaded plan (probelog.plan.Plan)."""
 
-    def __init__(self, plan: Any) -> None:
+    def __init__(self, plan: Any, journaled_kit: str | None = None) -> None:
         self.plan = plan
+        self.journaled_kit = journaled_kit  # the kit text a resumed session journaled with its cal
         self._kit: Any = None
         self._required: list[tuple[str, str]] | None = None
         self._limits: Any = None
@@ -55,10 +56,23 @@ class PlanView:
 
         if self._kit is None:
             try:
-                self._kit = cal.kit_from_mapping(self.cal().load_kit(), self.kit_source())
+                self._kit = cal.kit_from_mapping(self._kit_mapping(), self.kit_source())
             except (OSError, ValueError, KeyError, TypeError) as exc:
                 raise EngineError(f"plan {self.name!r}: cal kit {self.kit_source()}: {exc}") from None
         return self._kit
+
+    def _kit_mapping(self) -> Any:
+        """The kit file, or on a resume where it cannot be read any more (the
+        session moved, the plan was given by a relative path) the text journaled
+        with the last cal (the kit the session was calibrated with)."""
+        import tomllib
+
+        try:
+            return self.cal().load_kit()
+        except ValueError:
+            if self.journaled_kit is None:
+                raise
+            return tomllib.loads(self.journaled_kit)
 
     def kit_text(self) -> tuple[str | None, str | None]:
         """The kit file's text and its SHA-256 (None, None for a kit written inline in the plan)."""
@@ -117,11 +131,14 @@ class PlanView:
         raise EngineError(f"plan {self.name!r}: die {die[0]},{die[1]} is not in the plan's die list")
 
 
-def validate(plan: Any) -> PlanView:
+def validate(plan: Any, journaled_kit: str | None = None, resuming: bool = False) -> PlanView:
     """Everything a session will need from the plan, checked now: power limit,
     kit file (exists, parses, holds the standards the method needs), limit names.
-    EngineError with one line naming the file and field; nothing is created."""
-    view = PlanView(plan)
+    EngineError with one line naming the file and field; nothing is created.
+    ``journaled_kit``: on resume, the kit text the session journaled (used when
+    the file cannot be read any more). A resumed session of a journal older than
+    kit texts, whose kit file is gone, opens and fails only when it calibrates."""
+    view = PlanView(plan, journaled_kit)
     power = float(plan.settings.power_dbm)
     if power > float(plan.power_limit_dbm):
         raise EngineError(f"plan {view.name!r}: source power {power:g} dBm is above the plan's "
@@ -131,6 +148,8 @@ def validate(plan: Any) -> PlanView:
         try:
             view.required()
         except EngineError:
+            if resuming and journaled_kit is None:
+                return view
             raise
         except (OSError, ValueError, KeyError, TypeError) as exc:
             raise EngineError(f"plan {view.name!r}: cal kit {view.kit_source()}: {exc}") from None
