@@ -310,3 +310,14 @@ def test_resume_uses_the_journaled_kit_when_the_kit_file_is_gone(tmp_path):
     fresh = load_plan_text(plan_text().replace(str(KIT), str(kit)), "moved.toml")
     with pytest.raises(S.EngineError, match="kit.toml"):  # a new session still needs the file
         S.Engine.new(fresh, fake_bench(), tmp_path / "sessions")
+
+
+def test_run_refuses_a_plan_with_an_unknown_limit_in_one_line_and_no_folder(tmp_path, capsys):
+    from probelog.tui.cli import main as cli_main
+
+    plan = tmp_path / "bad.toml"
+    plan.write_text(plan_text().replace("[vna]", "[limits]\ncontact_dbb = 3.0\n\n[vna]"), encoding="utf-8")
+    assert cli_main(["run", str(plan), "--headless", "--dir", str(tmp_path / "sessions")]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "unknown limit 'contact_dbb'" in err and "Traceback" not in err
+    assert not (tmp_path / "sessions").exists()

@@ -41,9 +41,12 @@ def run(args: argparse.Namespace) -> int:
         plan = None
         probe_ids = _probe_ids_of(args.resume)
     else:
+        from probelog.engine.planview import validate
+
         try:
             plan = load_plan(args.plan)
-        except PlanError as exc:
+            validate(plan)  # kit, limits, power: refused before any instrument or folder is opened
+        except (PlanError, EngineError) as exc:
             raise UsageError(str(exc)) from None
         probe_ids = plan.probes.ids
 
