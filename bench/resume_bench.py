@@ -12,6 +12,7 @@ engine would have written it.
 
 from __future__ import annotations
 
+import gc
 import hashlib
 import time
 from pathlib import Path
@@ -90,9 +91,12 @@ def measure(report: Callable[..., None], make_session: Callable[[Path], tuple[Pa
         (full / SNAPSHOT_NAME).unlink()
 
         def resume(folder: Path) -> tuple[float, float]:
+            (folder / JOURNAL_NAME).read_bytes()  # both runs start with the file in the page cache
+            gc.disable()  # as Engine.resume does
             t0 = time.perf_counter()
             Journal.open(folder).close()  # the journal's own part: read, chain, recovery
             t1 = time.perf_counter()
+            gc.enable()
             engine = Engine.resume(folder, bench)
             t2 = time.perf_counter()
             engine.journal.close()  # as if killed again: the folder as it was plus session-resumed
@@ -102,5 +106,5 @@ def measure(report: Callable[..., None], make_session: Callable[[Path], tuple[Pa
         t_full, _ = resume(full)
     report(f"resume a {n}-event session (checkpoint at {at})", f"{t_ckpt:.2f} s", f"{t_full:.2f} s folding all",
            t_ckpt / t_full, "< 0.5 s", t_ckpt < 0.5)
-    report("  of which Journal.open (reads and hashes every line)", f"{t_open:.2f} s", f"{t_ckpt:.2f} s resume",
+    report("  of which Journal.open (reads, parses and hashes every line)", f"{t_open:.2f} s", f"{t_ckpt:.2f} s resume",
            t_open / t_ckpt, "", None)
