@@ -65,6 +65,7 @@ class ProbelogApp(App[int]):
         self.journal_events: list[ev.Event] = []
         self._tail: JournalTail | None = None
         self._session_closing = False
+        self.farewell = ""  # printed by run_app once the terminal is back
 
     # ---------------------------------------------------------------- opening
 
@@ -149,7 +150,10 @@ class ProbelogApp(App[int]):
         elif name == "RecalibrationAdvised":
             self.notify(f"Recalibration advised: {event.reason}  (press c)", severity="warning", timeout=10)
         elif name == "InstrumentFailed":
-            self.notify(f"{event.where}: {event.message}", title="instrument", severity="error", timeout=10)
+            title, todo = instrument_advice(event.where)
+            for screen in self.screen_stack:
+                if isinstance(screen, BenchScreen):
+                    screen.instrument_failed(title, todo, event.message)
         self.read_journal()
 
     @work(thread=True, exclusive=False, exit_on_error=False, group="journal", description="Reading the journal")
@@ -177,12 +181,25 @@ class ProbelogApp(App[int]):
         error = worker.error
         text = f"{type(error).__name__}: {error}"
         if worker.group == "open":
-            self.push_screen(Failure("Could not open the session", text), self._open_failed)
+            self.push_screen(Failure("Could not open the session", text,
+                                     "Check the instruments' addresses and that they are on, then start again."),
+                             self._open_failed)
         elif worker.group == "closing":
-            self.push_screen(Failure("Could not close the journal cleanly", text), lambda _: self.exit(1))
-        else:
-            self.push_screen(Failure(f"{worker.description or worker.name} failed", text))
+            self.push_screen(Failure("Could not close the journal cleanly", text,
+                                     "Everything acknowledged is on disk; resume the session to finish it."),
+                             lambda _: self.exit(1))
+        elif hasattr(error, "where"):  # an instrument failed: the board holds the error state too
+            title, todo = instrument_advice(error.where)
+            detail = f"{type(error.error).__name__}: {error.error}" if hasattr(error, "error") else text
+            for screen in self.screen_stack:
+                if isinstance(screen, BenchScreen):
+                    screen.instrument_failed(title, todo, detail)
+            self.push_screen(Failure(title, detail, todo))
             self.read_journal()  # an instrument error is journaled; show it
+        else:
+            title, todo = STEP_FAILED.get(worker.description, (f"{worker.description or worker.name} failed", ""))
+            self.push_screen(Failure(title, text, todo))
+            self.read_journal()
 
     def _open_failed(self, _: None) -> None:
         if self.intake is not None:
@@ -193,7 +210,9 @@ class ProbelogApp(App[int]):
     # ---------------------------------------------------------------- closing
 
     def action_quit(self) -> None:
-        self.action_close_session()
+        # after the next repaint: from the command palette, a dialog pushed at once
+        # would be taken down with the palette
+        self.call_after_refresh(self.action_close_session)
 
     def action_close_session(self) -> None:
         if self._session_closing:
@@ -226,6 +245,12 @@ class ProbelogApp(App[int]):
         self.post_message(SessionClosed(kind_name(engine.phase) == "DONE"))
 
     def on_session_closed(self, message: SessionClosed) -> None:
+        folder = self.engine.session_dir
+        if message.completed:
+            self.farewell = f"probelog: session complete; journal and data in {folder}"
+        else:
+            self.farewell = (f"probelog: session stopped; journal and data in {folder}\n"
+                             f"  resume it with: probelog run --resume {folder}")
         self.exit(0)
 
     # ---------------------------------------------------------------- palette
@@ -243,6 +268,26 @@ class ProbelogApp(App[int]):
             key = binding.key.split(",")[0]
             yield SystemCommand(f"{binding.description} [{key}]", binding.tooltip or binding.description,
                                 partial(screen.run_action, action))
+
+
+def instrument_advice(where: str) -> tuple[str, str]:
+    """(title, what to do) for a failed instrument, ``where`` as the engine names it."""
+    noun = {"vna": "VNA", "prober": "prober"}.get(str(where).lower(), f"instrument ({where})")
+    return (f"The {noun} failed during the landing",
+            f"Nothing was recorded for this landing; the probes are lifted. Check the {noun} and its "
+            "cable, then: enter retries (the link is reopened), s skips the site, x skips the die.")
+
+
+# titles and advice for the other steps that can fail, by worker description
+STEP_FAILED = {
+    "Solving the calibration": ("The calibration could not be solved",
+                                "Re-land the standards that failed, or redo the calibration (x)."),
+    "Recording a decision": ("Recording a decision failed",
+                             "The decision was not journaled; try it again, or quit and resume."),
+    "Going to a die": ("Could not go to that die", "The walk goes on where it was; pick another die."),
+    "Landing and sweeping": ("The landing could not be made",
+                             "Nothing was recorded for it; try again, or skip the site."),
+}
 
 
 def _takes_confirm(factory: EngineFactory) -> bool:
@@ -270,6 +315,8 @@ def run_app(engine_factory: EngineFactory, *, intake: SessionRequest | None = No
         report(f"probelog: stopped by {stop.cause}; the session was closed as interrupted"
                + (f", resume with --resume {where}" if where else ""))
         return stop.exit_code
+    if app.farewell:
+        print(app.farewell)
     if app.return_code not in (None, 0):
         return int(app.return_code)
     return int(result or 0)

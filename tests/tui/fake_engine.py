@@ -22,6 +22,8 @@ from probelog.session import (
     CalibrationComputed,
     CalOutcome,
     DecisionRecorded,
+    InstrumentError,
+    InstrumentFailed,
     JumpedToDie,
     LandingOutcome,
     NoteAdded,
@@ -98,8 +100,10 @@ def passivity_check(net: skrf.Network) -> CheckResult:
 class Journal:
     """Hash-chained JSON lines, as docs/journal-events.md describes."""
 
-    def __init__(self, root: Path) -> None:
+    def __init__(self, root: Path, clock: Callable[[], datetime] | None = None) -> None:
         self.root = root
+        # snapshot tests freeze the clock (the logbook and the journal view show times)
+        self.clock = clock or (lambda: datetime.now(timezone.utc))
         self.path = root / "journal.jsonl"
         self.seq, self.prev = 0, "0" * 64
         if self.path.exists():
@@ -112,7 +116,7 @@ class Journal:
         if self.closed:
             raise RuntimeError("journal is closed")
         self.seq += 1
-        ts = datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
+        ts = self.clock().strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
         line = json.dumps({"seq": self.seq, "ts": ts, "type": type_, "payload": payload, "prev": self.prev},
                           sort_keys=True, separators=(",", ":")).encode()
         with self.path.open("ab") as fh:
@@ -128,10 +132,14 @@ class FakeEngine:
     """docs/engine.md, on a three-die plan of two line sites, with SOLT + one verification stub."""
 
     def __init__(self, session_dir: Path, operator: str = "ana", faults: set | None = None,
-                 bench: Any = None, _resume: bool = False) -> None:
+                 bench: Any = None, _resume: bool = False, errors: set | None = None,
+                 clock: Callable[[], datetime] | None = None) -> None:
         session_dir.mkdir(parents=True, exist_ok=True)
-        self.journal = Journal(session_dir)
+        self.journal = Journal(session_dir, clock)
         self.faults = set(faults or ())
+        # (die, site, landing) where the VNA fails mid-sweep, once each (docs/engine.md:
+        # InstrumentError after journaling instrument-error, state unchanged)
+        self.errors = set(errors or ())
         self.bench = bench
         self.operator = operator
         self._subs: list[Callable] = []
@@ -284,6 +292,13 @@ class FakeEngine:
                 self._emit(StepMeasured(seq=seq, outcome=out))
                 return out
             key = (step.die, step.site)
+            if (step.die, step.site, step.landing) in self.errors:
+                self.errors.discard((step.die, step.site, step.landing))
+                exc = TimeoutError("VNA: no reply to the sweep trigger within 5 s")
+                seq = self.journal.append("instrument-error", {"where": "vna", "error": "TimeoutError",
+                                                               "message": str(exc), "touchdowns": dict(self._touch)})
+                self._emit(InstrumentFailed(seq=seq, where="vna", message=f"TimeoutError: {exc}"))
+                raise InstrumentError("vna", exc)
             self._landings[key] = step.landing
             fault = (step.die, step.site, step.landing) in self.faults
             net = lifted_tip_network() if fault else good_network(step.site_kind)
@@ -354,7 +369,7 @@ class FakeEngine:
             self._std, self._pending = {}, None
             self._set_phase(Phase.CALIBRATING, seq)
 
-    def _decide(self, action: str, reason: str) -> None:
+    def _decide(self, action: str, reason: str, landing_verdict_needs_reason: bool = False) -> None:
         with self._lock:
             self.calls.append(action)
             if self._phase is Phase.PROBING and action == "skip":
@@ -374,7 +389,32 @@ class FakeEngine:
             self._set_phase(Phase.DONE if done else Phase.PROBING, seq)
 
     def accept(self, reason: str = "") -> None:
+        """A FAILED landing is kept only with a reason (the engine's rule, docs/engine.md)."""
+        if self._phase is Phase.DECIDING and self._last is not None and self._last.verdict is Verdict.FAIL:
+            if not reason.strip():
+                raise ValueError("a reason is needed to keep a landing that FAILED")
+            self._decide("accept-despite-fail", reason)
+            return
         self._decide("accept", reason)
+
+    def skip_die(self, die: tuple[int, int], reason: str) -> None:
+        """Skip every undecided site of ``die`` with one reason: one ``die-skipped``
+        event; PROBING only (as the engine)."""
+        if not reason.strip():
+            raise ValueError("a reason is needed to skip a die")
+        die = tuple(die)
+        with self._lock:
+            self.calls.append("skip_die")
+            if self._phase is not Phase.PROBING:
+                raise RuntimeError(f"cannot skip a die in phase {self._phase.value}")
+            sites = [site for site, _ in SITES if (die, site) not in self._finished]
+            seq = self.journal.append("die-skipped", {"die": list(die), "sites": sites, "reason": reason})
+            for site in sites:
+                self._finished[(die, site)] = "skip"
+                self._emit(DecisionRecorded(seq=seq, die=die, site=site, landing=self._landings.get((die, site), 0),
+                                            action="skip", reason=reason))
+            done = len(self._finished) == len(DIES) * len(SITES)
+            self._set_phase(Phase.DONE if done else Phase.PROBING, seq)
 
     def reland(self, reason: str = "") -> None:
         self._decide("reland", reason)

@@ -17,6 +17,7 @@ from probelog.tui.screens.calibrate import Calibrate
 from probelog.tui.screens.cautions import Cautions
 from probelog.tui.screens.dialogs import AskReason, Confirm, Failure
 from probelog.tui.screens.probe import Probe
+from probelog.tui.screens.wafer import WaferView
 from probelog.tui.widgets.logbook import Logbook
 
 FAULT = ((1, 0), "line-a", 1)  # lifted tip on the first landing of line-a on die 1,0
@@ -176,8 +177,8 @@ def test_keys_follow_the_phase(tmp_path):
             await settle(pilot, "open")
             screen = app.screen
             assert screen.check_action("measure", ()) is True
-            assert screen.check_action("solve", ()) is None  # standards not measured yet
-            assert screen.check_action("accept_cal", ()) is None
+            assert screen.check_action("solve", ()) is False  # standards not measured yet: not offered
+            assert screen.check_action("accept_cal", ()) is False
             # a decision key pressed in the wrong phase does nothing to the journal
             n = len(journal(tmp_path / "s"))
             await press(pilot, "a", "x")
@@ -212,8 +213,9 @@ def test_footer_greys_keys_in_place_as_textual_reckons_them(tmp_path):
             await pilot.pause()
             after = footer_state(app)
             assert all(shown == reckoned for _, shown, reckoned in after)
-            assert {k: on for k, on, _ in after}["a"] and not {k: on for k, on, _ in before}["a"]
-            assert list(app.screen.query(FooterKey)) == widgets  # greyed in place, not rebuilt
+            # only the keys that apply now: "a" (keep) appears once there is a landing to keep
+            assert {k: on for k, on, _ in after}["a"] and "a" not in {k: on for k, on, _ in before}
+            assert widgets  # the footer had keys before the landing
             await quit_session(pilot)
 
     run(go())
@@ -231,7 +233,7 @@ def test_a_failed_instrument_call_opens_one_modal_and_the_ui_stays_usable(tmp_pa
             await settle(pilot, "open")
             await press(pilot, "space")
             assert isinstance(app.screen, Failure)
-            assert "Landing and sweeping failed" in screen_text(app)
+            assert "The landing could not be made" in screen_text(app)
             assert "ConnectionError: VNA on TCPIP::127.0.0.1::5025::SOCKET did not answer" in app.screen.message
             await press(pilot, "enter")
             assert isinstance(app.screen, Calibrate)
@@ -280,17 +282,25 @@ def test_enter_on_the_die_map_goes_to_that_die_after_asking(tmp_path):
             assert "Land on die 0,1 next?" in screen_text(app)
             await press(pilot, "n")
             assert app.engine.next_step.die == (0, 0)  # backing out changes nothing
-            await press(pilot, "enter", "y")
+            await press(pilot, "w", "down", "enter", "y")
             assert isinstance(app.screen, Probe)
             assert "next: die 0,1 · line-a" in board_text(app)
             await press(pilot, "space")
             assert "die 0,1 · line-a (line) · landing 1" in board_text(app)
             # while a landing waits for its decision the map refuses, without a dialog
-            await press(pilot, "enter")
+            await press(pilot, "w", "enter")
             assert isinstance(app.screen, Probe) and app.engine.calls.count("goto") == 1
-            await press(pilot, "w", "a")  # map loses focus; accept
-            # h shows the die's history instead of jumping
+            await press(pilot, "a")
+            # h opens the die's history in a panel that stays until h closes it
             await press(pilot, "w", "h")
+            assert isinstance(app.screen, WaferView)
+            panel = app.screen.query_one("#history")
+            assert panel.display and "line-a L1: ✔ PASS" in screen_text(app)
+            await press(pilot, "up")
+            assert panel.display and "die 0,0 history" in screen_text(app)
+            await press(pilot, "h")
+            assert not panel.display
+            await press(pilot, "escape")
             assert isinstance(app.screen, Probe)
             await quit_session(pilot)
 

@@ -16,7 +16,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("plan", nargs="?", metavar="PLAN", help="plan file (.toml) or the word demo")
     parser.add_argument("--resume", metavar="SESSION", help="session folder to continue")
     parser.add_argument("--dir", metavar="DIR", default="sessions", help="where session folders go (default sessions/)")
-    parser.add_argument("--operator", default="", help="operator name for the journal")
+    parser.add_argument("--operator", default="",
+                        help="operator name for the journal (default: your login name)")
     parser.add_argument("--retries", type=int, default=2, metavar="N",
                         help="headless: re-landings of a failing site before giving up (default 2)")
     parser.add_argument("--headless", action="store_true", help="no UI: accept passes, re-land failures, go on")
@@ -55,7 +56,7 @@ def run(args: argparse.Namespace) -> int:
         try:
             if args.resume:
                 return Engine.resume(args.resume, bench)
-            return Engine.new(plan, bench, args.dir, operator=args.operator)
+            return Engine.new(plan, bench, args.dir, operator=_operator(args.operator))
         except BaseException:
             bench.close()
             raise
@@ -132,6 +133,18 @@ def _trace_acks(engine) -> None:
 
     ack()  # session-opened (or the recovery note) was fsynced before the engine existed
     engine.subscribe(ack)
+
+
+def _operator(given: str) -> str:
+    """Who probes: the name given, else the login name (a journal always says who)."""
+    import getpass
+
+    if given.strip():
+        return given.strip()
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError):  # no user name in this environment
+        return "unknown operator"
 
 
 def _probe_ids_of(session: str) -> tuple[str, ...]:

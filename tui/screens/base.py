@@ -17,7 +17,9 @@ from textual.worker import Worker, WorkerState
 
 from probelog.engine.protocol import EngineProtocol
 from probelog.tui.messages import CalibrationSolved, ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
-from probelog.tui.screens.dialogs import AskReason
+from probelog.tui.screens.dialogs import AskReason, KeysHelp, help_rows
+from probelog.tui.widgets.verdict_board import VerdictBoard
+from probelog.tui.widgets.where_bar import kind_name
 from probelog.tui.widgets.logbook import Logbook
 from probelog.tui.widgets.smith import SmithChart
 
@@ -70,8 +72,16 @@ class BenchScreen(Screen):
         if before == "reland":
             engine.reland()
             self.post_message(DecisionRecorded("reland"))
+            nxt = engine.next_step
+            if nxt is not None and kind_name(nxt.kind) == "DRIFT":
+                # the engine put a due drift re-measure before the re-land: measure it
+                # (shown as the reference), then the site the operator asked for
+                self._measure_one(engine)
         elif before == "drift":
             engine.request_drift()
+        self._measure_one(engine)
+
+    def _measure_one(self, engine: Any) -> None:
         self.post_message(LandingStarted(engine.next_step))
         outcome = engine.measure()
         self.post_message(SweepMeasured(outcome))
@@ -82,12 +92,16 @@ class BenchScreen(Screen):
         self.post_message(CalibrationSolved(self.engine.compute_calibration()))
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="bench", description="Recording a decision")
-    def record(self, action: str, reason: str = "", then_measure: bool = False) -> None:
-        """Journal one operator decision through the engine."""
+    def record(self, action: str, reason: str = "", then_measure: bool = False, die: Any = None,
+               site: str | None = None) -> None:
+        """Journal one operator decision through the engine. ``accept`` with a
+        reason keeps a FAILED landing; ``skip-die`` and ``note`` use ``die``
+        (and ``site``)."""
         engine = self.engine
         calls = {
             "accept": lambda: engine.accept(reason),
             "skip": lambda: engine.skip(reason),
+            "skip-die": lambda: self._skip_die(engine, die, reason),
             "note": lambda: engine.note(reason),
             "recalibrate": lambda: engine.recalibrate(reason),
             "cal-accept": lambda: engine.accept_calibration(),
@@ -96,10 +110,16 @@ class BenchScreen(Screen):
         calls[action]()
         self.post_message(DecisionRecorded(action, reason))
         if then_measure and engine.next_step is not None:
-            self.post_message(LandingStarted(engine.next_step))
-            outcome = engine.measure()
-            self.post_message(SweepMeasured(outcome))
-            self.post_message(ChecksFinished(outcome))
+            self._measure_one(engine)
+
+    @staticmethod
+    def _skip_die(engine: Any, die: Any, reason: str) -> None:
+        """The engine skips a die while probing: a landing waiting for a decision
+        on it is skipped first, with the same reason."""
+        if kind_name(engine.phase) == "DECIDING":
+            engine.skip(reason)
+        if engine.wafer_status.get(tuple(die)) not in ("done", "failed", "skipped"):
+            engine.skip_die(die, reason)
 
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
         if event.state is WorkerState.ERROR:
@@ -138,21 +158,44 @@ class BenchScreen(Screen):
 
     # ---------------------------------------------------------------- shared keys
 
-    def ask_then_record(self, action: str, question: str, presets) -> None:
+    def ask_then_record(self, action: str, question: str, presets, title: str = "", **kwargs: Any) -> None:
         """Ask for a reason (a digit picks a preset), then journal ``action`` with it;
         nothing is recorded when the operator backs out."""
         def done(reason: str | None) -> None:
             if reason:
-                self.record(action, reason)
-        self.app.push_screen(AskReason(question, presets), done)
+                self.record(action, reason, **kwargs)
+        self.app.push_screen(AskReason(question, presets, title=title), done)
+
+    def shown_position(self) -> tuple[Any, str] | None:
+        """(die, site) of what the screen shows: overridden by the probe screen."""
+        return None
 
     def action_note(self) -> None:
-        self.ask_then_record("note", "Note for the journal (at the current die and site):", NOTE_PRESETS)
+        # the question says where the engine files the note: the landing waiting
+        # for a decision, else the next site
+        pos = self.shown_position()
+        where = f"die {pos[0][0]},{pos[0][1]} · {pos[1]}" if pos else "the session"
+        self.ask_then_record("note", f"Note for the journal, at {where}:", NOTE_PRESETS)
 
     def action_toggle_polar(self) -> None:
         for chart in self.query(SmithChart):
             chart.toggle_mode()
 
-    def action_toggle_logbook(self) -> None:
-        for log in self.query(Logbook):
-            log.display = not log.display
+    def action_journal(self) -> None:
+        from probelog.tui.screens.journal_view import JournalView
+
+        self.app.push_screen(JournalView(list(self.app.journal_events)))
+
+    def action_keys(self) -> None:
+        self.app.push_screen(KeysHelp(f"keys · {self.sub_title}", help_rows(self)))
+
+    def on_screen_resume(self) -> None:
+        # a dialog closed: the engine's phase may have moved on while it was up
+        if self.app.engine is not None:
+            self.app.route()
+
+    def instrument_failed(self, title: str, todo: str, detail: str) -> None:
+        """An instrument call failed: the board says so until the operator acts."""
+        for board in self.query(VerdictBoard):
+            board.show_error(title, todo, detail)
+        self.refresh_bindings()

@@ -66,7 +66,8 @@ class Calibrate(BenchScreen):
         Binding("x", "redo_cal", "redo cal", tooltip="Reject this cal set (asks a reason) and measure the standards again"),
         Binding("n", "note", "note", tooltip="Add a note to the journal"),
         Binding("p", "toggle_polar", "smith/polar", show=False, tooltip="Switch the reflection chart between Smith and polar"),
-        Binding("j", "toggle_logbook", "logbook", show=False, tooltip="Show or hide the logbook"),
+        Binding("j", "journal", "journal", tooltip="The journal: every event, filtered by die, site, type"),
+        Binding("question_mark", "keys", "keys", tooltip="Every key of this screen"),
         Binding("q", "app.close_session", "quit", tooltip="Close the journal and quit"),
     ]
 
@@ -85,6 +86,9 @@ class Calibrate(BenchScreen):
                     yield Logbook(id="logbook")
         yield BenchFooter()
 
+    def on_resize(self, event) -> None:
+        self.set_class(event.size.width < 100 or event.size.height < 32, "compact")
+
     def on_mount(self) -> None:
         self.title = "probelog"
         self.sub_title = "tip calibration"
@@ -101,18 +105,25 @@ class Calibrate(BenchScreen):
 
     def check_action(self, action: str, parameters: tuple) -> bool | None:
         phase = kind_name(self.engine.phase)
-        if action in ("measure", "reland", "solve", "accept_cal", "redo_cal", "note") and self.busy:
-            return None
+        # keys that do not apply now leave the footer (False); busy greys them (None)
         if action == "reland":
-            return True if phase == "CALIBRATING" and getattr(self.engine, "last_standard", None) else None
-        if action == "measure":
-            return True if phase == "CALIBRATING" and self.engine.next_step is not None else None
-        if action == "solve":
-            return True if phase == "CALIBRATING" and self.engine.next_step is None else None
-        if action == "accept_cal":  # a cal that cannot be right is never accepted (greyed, with why)
-            return (self._cal_refusal() is None) if phase == "VERIFYING" else None
-        if action == "redo_cal":
-            return True if phase == "VERIFYING" else None
+            ok = phase == "CALIBRATING" and bool(getattr(self.engine, "last_standard", None))
+        elif action == "measure":
+            ok = phase == "CALIBRATING" and self.engine.next_step is not None
+        elif action == "solve":
+            ok = phase == "CALIBRATING" and self.engine.next_step is None
+        elif action in ("accept_cal", "redo_cal"):
+            ok = phase == "VERIFYING"
+        elif action == "note":
+            ok = True
+        else:
+            return True
+        if not ok:
+            return False
+        if self.busy:
+            return None
+        if action == "accept_cal" and self._cal_refusal() is not None:
+            return None  # a cal that cannot be right is never accepted (greyed, with why)
         return True
 
     def _cal_refusal(self) -> str | None:
@@ -204,6 +215,7 @@ class Calibrate(BenchScreen):
             table.add_row(here, s.name, s.site, s.kind, verdict)
         done = sum(1 for s in standards if s.measured)
         table.border_subtitle = f"{done}/{len(standards)} measured"
+        self.set_class(kind_name(engine.phase) == "VERIFYING", "verifying")
         self._where()
         self.refresh_bindings()
 

@@ -60,11 +60,13 @@ class Unfinished:
 
 
 def find_unfinished(root: Path) -> list[Unfinished]:
-    """Sessions under ``root`` that can be resumed, newest folder first (events
-    decoded by probelog.events; a journal that does not decode is left out: resuming
-    it would refuse with the line anyway)."""
+    """Sessions under ``root`` that can be resumed, newest folder first: not an
+    export bundle (it holds a copy of a journal beside its manifest.csv), not a
+    session whose journal says it was completed."""
     found = []
     for journal in sorted(Path(root).glob("*/journal.jsonl"), reverse=True):
+        if (journal.parent / "manifest.csv").exists():
+            continue  # an analyst bundle: resuming it would write landings into it
         try:
             events = ev.decode_lines(journal.read_bytes(), str(journal))
         except (OSError, ev.EventError):

@@ -1,6 +1,12 @@
 """Probe: walk the plan one landing at a time. Where we are, what comes next, the
-sweep as it arrives, the verdict of every check in large form, the die map, the
-logbook and the tip wear; one key per step."""
+sweep as it arrives, the verdict of every check in large form, the logbook and
+the tip wear; the wafer full-screen on ``w``, the journal on ``j``.
+
+Safe by default: after a PASS the main key (enter / space) keeps the landing and
+lands on the next site; after a FAIL it re-lands. Keeping a FAILED landing takes
+its own key (``A``) and a reason. An instrument error holds the board in an
+error state until the operator retries, or skips the site or the die.
+"""
 
 from __future__ import annotations
 
@@ -12,14 +18,12 @@ from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.widgets import Header
 
-from probelog import events as ev
-from probelog import state as st
-from probelog import state_views as sv
-from probelog.state import SessionState
-from probelog.tui.widgets.bench_footer import BenchFooter
+from probelog.tui.journal_read import as_dict, kept_despite_fail
 from probelog.tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from probelog.tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
 from probelog.tui.screens.dialogs import Confirm
+from probelog.tui.screens.wafer import WaferView, cal_die_of
+from probelog.tui.widgets.bench_footer import BenchFooter
 from probelog.tui.widgets.die_map import DieMap
 from probelog.tui.widgets.logbook import Logbook
 from probelog.tui.widgets.smith import SmithChart
@@ -29,51 +33,47 @@ from probelog.tui.widgets.verdict_board import VerdictBoard, summarize, verdict_
 from probelog.tui.widgets.where_bar import WhereBar, describe_step, kind_name
 
 SKIP_PRESETS = ("structure damaged", "pads contaminated", "die known bad", "out of time on this wafer")
+SKIP_DIE_PRESETS = ("die dead: no site answers", "die cracked or scratched", "pads contaminated on the whole die",
+                    "die known bad from an earlier test")
+KEEP_FAIL_PRESETS = ("the device is expected to fail this check", "checked under the microscope: contact is good",
+                     "structure known damaged; kept for the record")
 RECAL_PRESETS = ("drift reference out of limits", "probes re-planarised", "scheduled recalibration",
                  "room temperature changed")
 COMPACT_WIDTH, COMPACT_HEIGHT = 100, 32
 
-
-def die_history(state: SessionState, die: tuple[int, int]) -> list[str]:
-    """Landings and decisions on one die, one line each, from the session state
-    (an accepted FAIL shows as accept-despite-fail with its reason)."""
-    lines = []
-    for _seq, site, rec in sv.die_history(state, die):
-        if isinstance(rec, st.LandingRec):
-            what = "" if rec.what == "landing" else f" ({rec.what})"
-            lines.append(f"{site} L{rec.landing}{what}: {verdict_word_from(rec.verdict.value)}")
-        else:
-            reason = f" ({rec.reason})" if rec.reason else ""
-            lines.append(f"{site} L{rec.landing}: {rec.action}{reason}")
-    return lines
-
-
-def verdict_word_from(value: str | None) -> str:
-    from probelog.verdicts import Verdict
-
-    try:
-        return verdict_word(Verdict(value))
-    except ValueError:
-        return str(value)
+# which keys apply in which state of the screen (see Probe.state)
+_APPLIES = {
+    "land": {"probing"}, "keep_and_land": {"pass"}, "reland_fail": {"fail"}, "retry": {"error"},
+    "keep": {"pass"}, "reland": {"pass"}, "reland_quiet": {"fail", "error"}, "keep_fail": {"fail"},
+    "skip": {"probing", "pass", "fail", "error"}, "skip_die": {"probing", "pass", "fail", "error"},
+    "drift": {"probing"}, "recalibrate": {"probing"},
+}
+_NEED_IDLE = set(_APPLIES) | {"note"}
 
 
 class Probe(BenchScreen):
     """The probing screen."""
 
     CSS_PATH = "probe.tcss"
+    # in the order they are used; only those that apply now are in the footer
     BINDINGS = [
-        Binding("space,m", "measure", "land", tooltip="Move to the next site, touch down and sweep"),
-        Binding("enter", "accept_next", "accept+land", tooltip="Keep this landing and land on the next site"),
-        Binding("a", "accept", "accept", tooltip="Keep this landing and move on"),
+        Binding("enter,space", "land", "land", tooltip="Move to the next site, touch down and sweep"),
+        Binding("enter,space", "keep_and_land", "keep+next", tooltip="Keep this landing and land on the next site"),
+        Binding("enter,space", "reland_fail", "re-land", tooltip="FAIL: lift, touch down again on the same site"),
+        Binding("enter,space", "retry", "retry", tooltip="Try the landing again (the instrument link is reopened)"),
+        Binding("a", "keep", "keep", tooltip="Keep this landing; the probes stay up"),
         Binding("r", "reland", "re-land", tooltip="Lift, touch down again on the same site and sweep"),
+        Binding("r", "reland_quiet", "re-land", show=False, tooltip="Re-land (after a FAIL or an error)"),
         Binding("s", "skip", "skip", tooltip="Skip this site (asks a reason)"),
-        Binding("n", "note", "note", tooltip="Add a note at this die and site"),
-        Binding("d", "drift", "drift ref", tooltip="Re-measure the drift reference now"),
-        Binding("c", "recalibrate", "recal", tooltip="Go back and calibrate again (asks a reason)"),
-        Binding("w", "toggle_map", "die map", tooltip="Show the die map and move its cursor"),
-        Binding("v", "colour_map", "map colour", show=False, tooltip="Colour the die map by status or by a metric"),
-        Binding("j", "toggle_logbook", "logbook", show=False, tooltip="Show or hide the logbook"),
+        Binding("x", "skip_die", "skip die", show=False, tooltip="Skip every site left on this die (one reason)"),
+        Binding("A", "keep_fail", "keep FAIL", tooltip="Keep this FAILED landing anyway (asks a reason)"),
+        Binding("n", "note", "note", tooltip="Add a note at the die and site on screen"),
+        Binding("d", "drift", "drift", show=False, tooltip="Re-measure the drift reference now"),
+        Binding("c", "recalibrate", "recal", tooltip="Calibrate again, then come back to the walk (asks a reason)"),
+        Binding("w", "wafer", "wafer", tooltip="The wafer full-screen: status or a metric, die history"),
+        Binding("j", "journal", "journal", tooltip="The journal: every event, filtered by die, site, type"),
         Binding("p", "toggle_polar", "smith/polar", show=False, tooltip="Switch the reflection chart between Smith and polar"),
+        Binding("question_mark", "keys", "keys", tooltip="Every key of this screen"),
         Binding("q", "app.close_session", "quit", tooltip="Close the journal and quit"),
     ]
 
@@ -100,6 +100,9 @@ class Probe(BenchScreen):
         self.sub_title = "probing"
         self._compact: bool | None = None
         self._keys_state: tuple | None = None
+        self._shown: Any = None  # the LandingOutcome on the board
+        self._fail_shown = False
+        self._error = False
         super().on_mount()
         last = self.engine.last_outcome
         if last is not None:  # resumed (or came back) while a landing awaits a decision
@@ -112,71 +115,105 @@ class Probe(BenchScreen):
             self.set_class(compact, "compact")
             self.query_one("#logbook").display = not compact
             self.query_one("#side").display = not compact
+            self.query_one(Header).display = not compact
 
     # ---------------------------------------------------------------- keys
 
-    def check_action(self, action: str, parameters: tuple) -> bool | None:
-        engine = self.engine
-        phase = kind_name(engine.phase)
-        nxt = engine.next_step
-        if action in ("measure", "accept_next", "accept", "reland", "skip", "note", "drift",
-                      "recalibrate") and self.busy:
-            return None
-        if action == "measure":
-            return True if phase == "PROBING" and nxt is not None else None
-        if action in ("accept", "reland", "accept_next"):
-            return True if phase == "DECIDING" else None
-        if action == "skip":
-            return True if phase == "DECIDING" or (phase == "PROBING" and nxt is not None
-                                                   and kind_name(nxt.kind) == "SITE") else None
-        if action in ("drift", "recalibrate"):
-            return True if phase == "PROBING" else None
-        return True
+    def state(self) -> str:
+        """busy, error, probing, pass (deciding on a PASS or WARN), fail, done, other."""
+        if self.busy:
+            return "busy"
+        if self._error:
+            return "error"
+        phase = kind_name(self.engine.phase)
+        if phase == "DECIDING":
+            last = self.engine.last_outcome
+            return "fail" if last is not None and kind_name(last.verdict) == "FAIL" else "pass"
+        if phase == "PROBING":
+            return "probing" if self.engine.next_step is not None else "other"
+        return "done" if phase == "DONE" else "other"
 
-    def action_measure(self) -> None:
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        if action not in _NEED_IDLE:
+            return True
+        state = self.state()
+        if action == "note":
+            return None if state == "busy" else True
+        applies = _APPLIES[action]
+        if state == "busy":  # shown greyed in the state it had, not hidden
+            return None if self._keys_state and self._keys_state[0] in applies else False
+        if action in ("skip", "skip_die") and state == "probing":
+            nxt = self.engine.next_step
+            return True if nxt is not None and kind_name(nxt.kind) == "SITE" else False
+        return state in applies
+
+    def action_land(self) -> None:
         self.measure_next()
 
-    def action_accept(self) -> None:
-        self.record("accept")
-
-    def action_accept_next(self) -> None:
+    def action_keep_and_land(self) -> None:
         self.record("accept", then_measure=True)
+
+    def action_keep(self) -> None:
+        self.record("accept")
 
     def action_reland(self) -> None:
         self.measure_next("reland")
 
+    def action_reland_fail(self) -> None:
+        self.measure_next("reland")
+
+    def action_reland_quiet(self) -> None:
+        if self._error:
+            self.action_retry()
+        else:
+            self.measure_next("reland")
+
+    def action_retry(self) -> None:
+        self._error = False
+        self.measure_next()
+
     def action_drift(self) -> None:
         self.measure_next("drift")
+
+    def action_keep_fail(self) -> None:
+        self.ask_then_record(
+            "accept", f"The checks FAILED {self._target()}.\nKeeping it puts this landing in the dataset as "
+                      "accepted despite the FAIL. Why keep it?",
+            KEEP_FAIL_PRESETS, title="✖ Keep a FAILED landing?")
 
     def action_skip(self) -> None:
         self.ask_then_record("skip", f"Skip {self._target()}? Why:", SKIP_PRESETS)
 
+    def action_skip_die(self) -> None:
+        die = self._target_die()
+        if die is not None:
+            self._ask_skip_die(die)
+
+    def _ask_skip_die(self, die: tuple[int, int]) -> None:
+        self.ask_then_record("skip-die", f"Skip every site left on die {die[0]},{die[1]}? One reason for all:",
+                             SKIP_DIE_PRESETS, die=die)
+
     def action_recalibrate(self) -> None:
-        self.ask_then_record("recalibrate", "Recalibrate now? Why:", RECAL_PRESETS)
+        self.ask_then_record("recalibrate", "Recalibrate now? The walk goes on from here once the new cal "
+                                            "is accepted. Why:", RECAL_PRESETS)
 
-    def action_toggle_map(self) -> None:
-        side, die_map = self.query_one("#side"), self.query_one("#map", DieMap)
-        if not side.display:
-            side.display = True
-            die_map.focus()
-        elif die_map.has_focus:
-            die_map.blur()
-            if self._compact:
-                side.display = False
-        else:
-            die_map.focus()
+    def action_wafer(self) -> None:
+        def answered(choice: tuple[str, tuple[int, int]] | None) -> None:
+            if choice is None:
+                return
+            what, die = choice
+            if what == "goto":
+                self._ask_goto(die)
+            elif what == "skip-die":
+                self._ask_skip_die(die)
+        self.app.push_screen(WaferView(self.engine, list(self.app.journal_events)), answered)
 
-    def action_colour_map(self) -> None:
-        choice = self.query_one("#map", DieMap).cycle_colouring()
-        self.notify(f"die map coloured by {choice}", timeout=2)
-
-    def on_die_map_die_chosen(self, message: DieMap.DieChosen) -> None:
-        """Enter on a die: land there next, after a y/n confirmation."""
-        die = message.die
+    def _ask_goto(self, die: tuple[int, int]) -> None:
+        """Land on ``die`` next, after a y/n confirmation (or say why not)."""
         status = self.engine.wafer_status.get(die)
         phase = kind_name(self.engine.phase)
         refusal = ("wait: the instrument is busy" if self.busy else
-                   "decide on this landing first (accept, re-land or skip)" if phase == "DECIDING" else
+                   "decide on this landing first (keep, re-land or skip)" if phase == "DECIDING" else
                    "calibrate first" if phase in ("CALIBRATING", "VERIFYING") else
                    "every site of the plan is decided" if phase == "DONE" else
                    f"die {die[0]},{die[1]} is not in the plan" if status is None else
@@ -198,22 +235,36 @@ class Probe(BenchScreen):
         self.engine.goto(die)
         self.post_message(DecisionRecorded("goto"))
 
-    def on_die_map_history_wanted(self, message: DieMap.HistoryWanted) -> None:
-        die = message.die
-        lines = die_history(self.engine.state, die)
-        status = self.engine.wafer_status.get(die, "?")
-        body = "\n".join(lines[-8:]) if lines else "nothing measured here yet"
-        self.notify(body, title=f"die {die[0]},{die[1]}: {status}", timeout=8)
-
     def _target(self) -> str:
         last = self.engine.last_outcome
         if kind_name(self.engine.phase) == "DECIDING" and last is not None:
             return describe_step(last.step)
         return describe_step(self.engine.next_step)
 
+    def _target_die(self) -> tuple[int, int] | None:
+        last, nxt = self.engine.last_outcome, self.engine.next_step
+        step = last.step if kind_name(self.engine.phase) == "DECIDING" and last is not None else nxt
+        return tuple(step.die) if step is not None else None
+
+    def shown_position(self) -> tuple[Any, str] | None:
+        last = self.engine.last_outcome
+        if kind_name(self.engine.phase) == "DECIDING" and last is not None:
+            return tuple(last.step.die), last.step.site
+        nxt = self.engine.next_step
+        return (tuple(nxt.die), nxt.site) if nxt is not None else None
+
+    def instrument_failed(self, title: str, todo: str, detail: str) -> None:
+        self._error = True
+        if self._landing_note is not None:
+            self._landing_note.stop()
+            self._landing_note = None
+        super().instrument_failed(title, todo, detail)
+        self._where()
+
     # ---------------------------------------------------------------- messages
 
     def on_landing_started(self, message: LandingStarted) -> None:
+        self._error = False
         # shown only if the landing outlasts BUSY_SHOW_S (see BenchScreen.watch_busy)
         self._landing_note = self.set_timer(BUSY_SHOW_S, lambda: self._show_landing(message.step))
 
@@ -231,27 +282,50 @@ class Probe(BenchScreen):
         self.call_after_refresh(self._plot, message.outcome)
 
     def _plot(self, outcome: Any) -> None:
-        message = SweepMeasured(outcome)
-        traces, net = reflections(message.outcome)
-        caption = f"{message.outcome.step.site} L{message.outcome.step.landing}"
-        self.query_one("#sweep", SweepPlot).show_network(net.f, net.s, caption)
-        self.query_one("#smith", SmithChart).set_traces(traces, caption, turns_matter(message.outcome))
+        traces, net = reflections(outcome)
+        caption = f"{outcome.step.site} L{outcome.step.landing}"
+        self.query_one("#sweep", SweepPlot).show_landing(outcome, net)
+        self.query_one("#smith", SmithChart).set_traces(traces, caption, turns_matter(outcome))
 
     def on_checks_finished(self, message: ChecksFinished) -> None:
         if self._landing_note is not None:
             self._landing_note.stop()
             self._landing_note = None
         o = message.outcome
-        prefix = "drift reference · " if kind_name(o.step.kind) == "DRIFT" else ""
+        drift = kind_name(o.step.kind) == "DRIFT"
+        self._shown = o
+        caption = summarize(o)
+        if drift:
+            caption = f"drift reference · {caption} · [space] lands on the next site"
         with self.app.batch_update():  # table, caption, verdict and look in one screen update
-            self.query_one("#board", VerdictBoard).show_checks(o.checks, prefix + summarize(o), o.verdict)
+            self.query_one("#board", VerdictBoard).show_checks(o.checks, caption, o.verdict, reference=drift)
 
     def on_decision_recorded(self, message: DecisionRecorded) -> None:
-        if message.action in ("accept", "skip"):
-            self.query_one("#board", VerdictBoard).show_busy(f"{message.action} recorded · next: space")
+        # the decided landing stays on the board (a note goes to it) with what was decided
+        board = self.query_one("#board", VerdictBoard)
+        shown = self._shown
+        about = summarize(shown) if shown is not None else ""
+        if self._error and message.action in ("skip", "skip-die"):  # the operator dealt with the error
+            self._error = False
+            board.show_busy(f"{'site' if message.action == 'skip' else 'die'} skipped ({message.reason})"
+                            " · [enter] next site")
+            self._shown = None
+        elif message.action == "accept" and message.reason:
+            board.status = f"KEPT DESPITE FAIL ({message.reason}) · {about} · [enter] next site"
+        elif message.action in ("accept", "skip"):
+            board.status = f"{'kept' if message.action == 'accept' else 'skipped'} · {about} · [enter] next site"
+        elif message.action == "skip-die":
+            board.show_busy(f"die skipped ({message.reason}) · [enter] next site")
+            self._shown = None
         elif message.action == "goto":
-            self.query_one("#board", VerdictBoard).show_busy(
-                f"next: {describe_step(self.engine.next_step)} · space to land")
+            board.show_busy(f"next: {describe_step(self.engine.next_step)} · [enter] to land")
+            self._shown = None
+        shown = self._shown
+        if (message.action == "accept" and not message.reason and shown is not None
+                and kind_name(shown.step.kind) == "SITE"):
+            self.query_one("#sweep", SweepPlot).remember(shown)
+        if message.action in ("accept", "skip-die"):
+            self._refresh_map()
 
     def _show_outcome(self, outcome: Any) -> None:
         self.on_sweep_measured(SweepMeasured(outcome))
@@ -265,47 +339,54 @@ class Probe(BenchScreen):
 
     def _refresh_view(self) -> None:
         engine = self.engine
-        last = engine.last_outcome
-        current = last.step.die if last is not None else (engine.next_step.die if engine.next_step else None)
-        self.query_one("#map", DieMap).update_state(engine.wafer_status, current, self._die_metrics())
+        self._refresh_map()
         life = getattr(getattr(getattr(engine, "plan", None), "probes", None), "wear_warn_touchdowns", None)
         # the plan's warning threshold is 80 % of the life we draw against
         self.query_one("#wear", TipWear).update_counts(engine.touchdowns, int(life / 0.8) if life else None)
         self._where()
-        # the keys depend on the phase, the busy flag and the next step's kind only;
+        # the keys depend on the screen's state and the next step's kind only;
         # each refresh_bindings costs the footer a pass over every binding
         nxt = engine.next_step
-        keys_state = (kind_name(engine.phase), self.busy, None if nxt is None else kind_name(nxt.kind))
+        keys_state = (self.state(), None if nxt is None else kind_name(nxt.kind))
         if keys_state != self._keys_state:
-            self._keys_state = keys_state
+            if keys_state[0] != "busy":
+                self._keys_state = keys_state
             self.refresh_bindings()
 
-    def journal_grew(self, events_: list[ev.Event]) -> None:
-        super().journal_grew(events_)
-        if any(e.type == "decision" for e in events_):  # a kept landing may bring metrics
-            die_map = self.query_one("#map", DieMap)
-            die_map.update_state(self.engine.wafer_status, die_map.current, self._die_metrics())
+    def _refresh_map(self) -> None:
+        engine = self.engine
+        last = engine.last_outcome
+        current = last.step.die if last is not None else (engine.next_step.die if engine.next_step else None)
+        events_ = self.app.journal_events
+        self.query_one("#map", DieMap).update_state(engine.wafer_status, current, cal_die=cal_die_of(events_),
+                                                    flagged=set(kept_despite_fail(events_)))
 
-    def _die_metrics(self) -> dict[tuple[int, int], dict[str, float]]:
-        """Each die's kept-landing metrics at one journaled frequency (the middle one), from the state."""
-        return sv.die_metrics(self.engine.state)
+    def journal_grew(self, events_: list[dict]) -> None:
+        super().journal_grew(events_)
+        if any(as_dict(e).get("type") in ("decision", "die-skipped") for e in events_):
+            self._refresh_map()
 
     def _where(self, doing: str | None = None) -> None:
         engine = self.engine
-        phase = kind_name(engine.phase)
+        state = self.state()
         done, total = engine.progress
         last, nxt = engine.last_outcome, engine.next_step
-        if phase == "DECIDING" and last is not None:
-            here = f"{describe_step(last.step)} · {verdict_word(last.verdict)} · decide"
-            next_ = "[a] accept  [enter] accept+land next  [r] re-land  [s] skip"
-        elif phase == "DONE":
+        if state == "error":
+            here = "the last landing did not complete: nothing was recorded for it"
+            next_ = "[enter] retry (the link is reopened)  [s] skip site  [x] skip die"
+        elif state in ("pass", "fail") and last is not None:
+            here = f"{describe_step(last.step)} · {verdict_word(last.verdict)}"
+            next_ = ("[enter] re-land  [s] skip  [x] skip die  [A] keep FAIL (asks why)" if state == "fail"
+                     else "[enter] keep + next site  [a] keep  [r] re-land  [s] skip")
+        elif kind_name(engine.phase) == "DONE":
             here, next_ = "every site of the plan is decided", "[q] close the journal and quit"
         else:
-            here = describe_step(last.step) if last is not None else "probes up"
-            next_ = f"{describe_step(nxt)}   [space]" if nxt is not None else "—"
+            here = "probes up"
+            next_ = f"{describe_step(nxt)}   [enter]" if nxt is not None else "—"
             if nxt is not None and kind_name(nxt.kind) == "DRIFT":
                 next_ = "drift reference: " + next_
-        here += f"   ·   sites {done}/{total}"
+        here += f"  ·  sites {done}/{total}"
         if doing is None:
-            doing = "busy…" if self.busy else ("DONE" if phase == "DONE" else "idle: waiting for you")
+            doing = ("✖ instrument error: see the board" if state == "error" else
+                     "busy…" if self.busy else ("DONE" if state == "done" else "idle: waiting for you"))
         self.query_one("#where", WhereBar).show(here, next_, doing)

@@ -1,10 +1,11 @@
-"""The die map: every die of the wafer, coloured and marked by status or shaded by
-a chosen metric; arrow keys move a cursor, enter asks to land there next, h shows
-what the journal holds for the die under the cursor.
+"""The die map: every die of the wafer inside its outline, marked by status or
+shaded by a chosen metric; arrow keys move a cursor, enter asks to land there
+next, h opens the history of the die under the cursor.
 
-Status marks (never colour alone): ``·`` to do, ``◐`` partly done, ``✔`` done,
-``!`` accepted despite a FAIL (with a reason), ``✖`` failed, ``↷`` skipped; the die under
-the probes is framed ``[ ]``.
+Marks (never colour alone): ``·`` to do, ``◐`` partly done, ``✔`` done, ``✖``
+failed, ``↷`` skipped, ``!`` done with a FAIL kept; a ``!`` beside a die: a landing kept despite a FAIL; a
+``c``: the calibration die; the die under the probes is framed ``[ ]``. By
+metric, the four shades ``░▒▓█`` run from the lowest to the highest value shown.
 """
 
 from __future__ import annotations
@@ -19,10 +20,15 @@ from textual.widget import Widget
 
 Die = tuple[int, int]
 
-STATUS_MARK = {"todo": "·", "partial": "◐", "done": "✔", "accepted-despite-fail": "!", "failed": "✖", "skipped": "↷"}
+STATUS_MARK = {"todo": "·", "partial": "◐", "done": "✔", "accepted-despite-fail": "!", "failed": "✖",
+               "skipped": "↷"}
+STATUS_WORD = {"todo": "to do", "partial": "partly done", "done": "done",
+               "accepted-despite-fail": "done with a FAIL kept", "failed": "failed", "skipped": "skipped"}
 STATUS_STYLE = {"todo": "grey50", "partial": "bold cyan", "done": "bold green", "accepted-despite-fail": "bold magenta",
                 "failed": "bold red", "skipped": "bold yellow"}
 SHADES = "░▒▓█"
+SHADE_STYLE = ("blue", "cyan", "yellow", "bold red")
+OUTLINE = "•"
 
 
 def shade_index(value: float, lo: float, hi: float) -> int:
@@ -33,6 +39,27 @@ def shade_index(value: float, lo: float, hi: float) -> int:
         return len(SHADES) - 1
     k = int((value - lo) / (hi - lo) * len(SHADES))
     return min(max(k, 0), len(SHADES) - 1)
+
+
+def legend(values: dict[Die, float] | None, label: str = "") -> Text:
+    """The key to the map's marks (by status) or shades (by metric)."""
+    out = Text(no_wrap=False)
+    if values is None:
+        for k, mark in STATUS_MARK.items():
+            if k == "accepted-despite-fail":
+                continue  # the "!" entry below says it
+            out.append(f"{mark} {STATUS_WORD[k]}  ", STATUS_STYLE[k])
+        out.append("! kept despite FAIL  c cal die  [ ] probes here", "dim")
+        return out
+    finite = [v for v in values.values() if math.isfinite(v)]
+    lo, hi = (min(finite), max(finite)) if finite else (0.0, 0.0)
+    out.append(f"{label}: ", "bold")
+    for i, sh in enumerate(SHADES):
+        a = lo + (hi - lo) * i / len(SHADES)
+        out.append(f"{sh}", SHADE_STYLE[i])
+        out.append(f" {a:.4g}  ")
+    out.append(f"… {hi:.4g}   · no value", "dim")
+    return out
 
 
 class DieMap(Widget, can_focus=True):
@@ -47,8 +74,6 @@ class DieMap(Widget, can_focus=True):
         Binding("down", "move(0,1)", "down", show=False),
         Binding("left", "move(-1,0)", "left", show=False),
         Binding("right", "move(1,0)", "right", show=False),
-        Binding("enter", "choose", "go to die", tooltip="Land on this die next (asks first)"),
-        Binding("h", "history", "die history", tooltip="Show what the journal holds for this die"),
     ]
 
     class DieChosen(Message):
@@ -58,46 +83,37 @@ class DieMap(Widget, can_focus=True):
             super().__init__()
             self.die = die
 
-    class HistoryWanted(Message):
-        """The operator asked what the journal holds for a die."""
-
-        def __init__(self, die: Die) -> None:
-            super().__init__()
-            self.die = die
-
     cursor: reactive[Die | None] = reactive(None)
-    colour_by: reactive[str] = reactive("status")
 
-    def __init__(self, *args, **kwargs) -> None:
+    def __init__(self, *args, big: bool = False, **kwargs) -> None:
         super().__init__(*args, **kwargs)
+        self.big = big  # full-screen: wider cells, the wafer outline
         self.status: dict[Die, str] = {}
-        self.metrics: dict[Die, dict[str, float]] = {}
+        self.values: dict[Die, float] | None = None  # None: marks by status
+        self.value_label = ""
         self.current: Die | None = None
+        self.cal_die: Die | None = None
+        self.flagged: set[Die] = set()
 
-    def update_state(self, status: dict[Die, str], current: Die | None,
-                     metrics: dict[Die, dict[str, float]] | None = None) -> None:
-        """New statuses (die -> todo/partial/done/failed/skipped) and the die under the probes."""
+    def update_state(self, status: dict[Die, str], current: Die | None, *, cal_die: Die | None = None,
+                     flagged: set[Die] | None = None) -> None:
+        """New statuses (die -> todo/partial/done/failed/skipped), the die under the
+        probes, the calibration die, the dies with a landing kept despite a FAIL."""
         resized = set(self.status) != {tuple(d) for d in status}
         self.status = {tuple(d): s for d, s in status.items()}
         self.current = tuple(current) if current is not None else None
-        if metrics is not None:
-            self.metrics = metrics
-        if self.cursor is None and self.current is not None:
-            self.cursor = self.current
+        if cal_die is not None:
+            self.cal_die = tuple(cal_die)
+        if flagged is not None:
+            self.flagged = set(flagged)
+        if self.cursor is None and self.status:
+            self.cursor = self.current if self.current in self.status else next(iter(self.status))
         self._titles()
         self.refresh(layout=resized)  # a new layout only when the set of dies changed
 
-    def metric_names(self) -> list[str]:
-        return sorted({k for m in self.metrics.values() for k in m})
-
-    def cycle_colouring(self) -> str:
-        """status -> each metric in turn -> status; returns the new choice."""
-        choices = ["status", *self.metric_names()]
-        i = choices.index(self.colour_by) if self.colour_by in choices else 0
-        self.colour_by = choices[(i + 1) % len(choices)]
-        return self.colour_by
-
-    def watch_colour_by(self, _v: str) -> None:
+    def colour_by(self, values: dict[Die, float] | None, label: str = "") -> None:
+        """Shade by ``values`` (die -> figure), or back to status marks with None."""
+        self.values, self.value_label = values, label
         self._titles()
         self.refresh()
 
@@ -109,52 +125,91 @@ class DieMap(Widget, can_focus=True):
         counts = dict.fromkeys(STATUS_MARK, 0)
         for s in self.status.values():
             counts[s] = counts.get(s, 0) + 1
-        self.border_title = f"die map · {self.colour_by}"
+        self.border_title = "wafer" + (f" · {self.value_label}" if self.values is not None else " · status")
         self.border_subtitle = " ".join(f"{STATUS_MARK[k]}{counts[k]}" for k in STATUS_MARK)
 
     def _bounds(self) -> tuple[int, int, int, int]:
-        cols = [d[0] for d in self.status] or [0]
-        rows = [d[1] for d in self.status] or [0]
+        dies = list(self.status) + ([self.cal_die] if self.cal_die is not None else [])
+        cols = [d[0] for d in dies] or [0]
+        rows = [d[1] for d in dies] or [0]
         return min(cols), max(cols), min(rows), max(rows)
+
+    def _cell(self) -> tuple[int, int]:
+        """(width, height) in characters of one die; 5 x 2 is close to square."""
+        return (5, 2) if self.big else (3, 1)
+
+    def _margin(self) -> int:
+        return 1 if self.big else 0  # dies of room around the grid for the outline
 
     def get_content_width(self, container, viewport) -> int:
         c0, c1, _, _ = self._bounds()
-        return max(3 * (c1 - c0 + 1) + 4, 24)
+        cw, _ = self._cell()
+        return max(cw * (c1 - c0 + 1 + 2 * self._margin()) + 3, 24)
 
     def get_content_height(self, container, viewport, width) -> int:
         _, _, r0, r1 = self._bounds()
-        return (r1 - r0 + 1) + 2
+        _, ch = self._cell()
+        return ch * (r1 - r0 + 1 + 2 * self._margin()) + 1
+
+    def _mark(self, die: Die) -> tuple[str, str]:
+        st = self.status[die]
+        if self.values is None:
+            return STATUS_MARK.get(st, "?"), STATUS_STYLE.get(st, "")
+        v = self.values.get(die)
+        if v is None or not math.isfinite(v):
+            return "·", "grey50"
+        finite = [x for x in self.values.values() if math.isfinite(x)]
+        k = shade_index(v, min(finite), max(finite))
+        return SHADES[k], SHADE_STYLE[k]
 
     def render(self) -> Text:
         c0, c1, r0, r1 = self._bounds()
-        metric = self.colour_by if self.colour_by != "status" else None
-        values = [m[metric] for m in self.metrics.values() if metric in m] if metric else []
-        lo, hi = (min(values), max(values)) if values else (0.0, 0.0)
+        cw, ch = self._cell()
+        m = self._margin()
+        ncol, nrow = c1 - c0 + 1 + 2 * m, r1 - r0 + 1 + 2 * m
+        # the outline: a circle round the grid's centre through its farthest die corner
+        cx, cy = (ncol - 1) / 2, (nrow - 1) / 2
+        radius = max((math.hypot(d[0] - c0 + m - cx, d[1] - r0 + m - cy) for d in self.status), default=0.1) + 0.9
         out = Text(no_wrap=True)
-        out.append("   " + "".join(f"{c:>3}" for c in range(c0, c1 + 1)) + "\n", "dim")
-        for r in range(r0, r1 + 1):
-            out.append(f"{r:>3}", "dim")
-            for c in range(c0, c1 + 1):
-                die = (c, r)
-                if die not in self.status:
-                    out.append("   ")
-                    continue
-                st = self.status[die]
-                mark, style = STATUS_MARK.get(st, "?"), STATUS_STYLE.get(st, "")
-                if metric:
-                    v = self.metrics.get(die, {}).get(metric)
-                    mark = "·" if v is None else SHADES[shade_index(v, lo, hi)]
-                    style = "grey50" if v is None else "bold"
-                left, right = ("[", "]") if die == self.current else (" ", " ")
-                if die == self.cursor and self.has_focus:
-                    style += " reverse"
-                out.append(left + mark + right, style)
-            out.append("\n")
-        if metric:
-            out.append(f"{SHADES[0]} {lo:.4g} … {SHADES[-1]} {hi:.4g}", "dim")
-        else:
-            out.append("[ ] under the probes", "dim")
+        out.append("   " + "".join(f"{c:^{cw}}" for c in range(c0 - m, c1 + m + 1)) + "\n", "dim")
+        for gr in range(nrow):
+            r = r0 - m + gr
+            for sub in range(ch):
+                out.append(f"{r:>3}" if sub == ch - 1 else "   ", "dim")  # on the marks' row
+                for gc in range(ncol):
+                    die = (c0 - m + gc, r)
+                    if die not in self.status:
+                        if die == self.cal_die and sub == ch - 1:  # calibrated on, not probed
+                            out.append(f"{'c':^{cw}}", "bold yellow")
+                        else:
+                            out.append(self._outline_cell(gc, gr, sub, cx, cy, radius, cw, ch), "dim")
+                        continue
+                    if sub != ch - 1 and ch > 1:  # the upper row of a tall cell: flags
+                        flag = ("c" if die == self.cal_die else " ") + ("!" if die in self.flagged else " ")
+                        out.append(f"{flag:^{cw}}", "bold yellow")
+                        continue
+                    mark, style = self._mark(die)
+                    left, right = ("[", "]") if die == self.current else (" ", " ")
+                    if ch == 1:  # flags in the frame's place when there is no room above
+                        if die != self.current:
+                            right = "!" if die in self.flagged else "c" if die == self.cal_die else " "
+                    if die == self.cursor and self.has_focus:
+                        style += " reverse"
+                    body = left + mark + right
+                    out.append(f"{body:^{cw}}", style)
+                out.append("\n")
         return out
+
+    @staticmethod
+    def _outline_cell(gc, gr, sub, cx, cy, radius, cw, ch) -> str:
+        """Characters of an empty cell: a dot where the wafer's edge passes."""
+        chars = []
+        for k in range(cw):
+            x = gc + (k + 0.5) / cw - 0.5
+            y = gr + (sub + 0.5) / ch - 0.5
+            d = math.hypot(x - cx, y - cy)
+            chars.append(OUTLINE if abs(d - radius) < 0.5 / cw * 2 and k % 2 == 0 else " ")
+        return "".join(chars)
 
     def action_move(self, dc: int, dr: int) -> None:
         if not self.status:
@@ -165,11 +220,3 @@ class DieMap(Widget, can_focus=True):
             if cand in self.status:
                 self.cursor = cand
                 return
-
-    def action_choose(self) -> None:
-        if self.cursor is not None:
-            self.post_message(self.DieChosen(self.cursor))
-
-    def action_history(self) -> None:
-        if self.cursor is not None:
-            self.post_message(self.HistoryWanted(self.cursor))

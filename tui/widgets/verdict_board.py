@@ -13,7 +13,7 @@ from rich.console import Group
 from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
-from textual.containers import Vertical
+from textual.containers import Vertical, VerticalScroll
 from textual.reactive import reactive
 from textual.widgets import Static
 
@@ -35,6 +35,14 @@ def verdict_word(v: Verdict) -> str:
     return f"{sym} {word}"
 
 
+def verdict_word_of(value: str | None) -> str:
+    """verdict_word of a journaled verdict value ("pass", "fail", ...), or the value as is."""
+    try:
+        return verdict_word(Verdict(value))
+    except ValueError:
+        return str(value)
+
+
 def format_figure(value: float | None, unit: str) -> str:
     """A check figure with its unit, or an em dash when the check gave none."""
     if value is None:
@@ -49,30 +57,67 @@ def format_ghz(at_hz: float | None) -> str:
     return "" if at_hz is None else f"{at_hz / 1e9:.1f} GHz"
 
 
-_CLASSES = tuple(look[3] for look in _LOOK.values()) + ("v-busy",)
+_CLASSES = tuple(look[3] for look in _LOOK.values()) + ("v-busy", "v-error", "v-ref")
 
 _STYLES = {Verdict.PASS: "bold green", Verdict.WARN: "bold yellow",
            Verdict.FAIL: "bold reverse red", Verdict.NA: "dim"}
 
 
+# what each check's figure is a figure of (S-parameter and port), when its
+# message does not name one itself; the formulas are in probelog.checks
+_QUANTITY = {"contact": "|Sii| worst port", "passivity": "σmax(S)", "reciprocity": "|S21−S12|",
+             "symmetry": "|S11−S22|", "rotation": "∠S11 turn", "line-window": "Z0 from S",
+             "repeatability": "Δ|Sij| vs last", "drift": "Δ|Sij| vs ref"}
+
+
+def quantity_of(check: CheckResult) -> str:
+    """The S-parameter (and port) a check's figure is about: the first one its
+    message names (e.g. "S21 at 40.0 GHz"), else what the check measures."""
+    import re
+
+    base = check.name.split(" ")[0]
+    if base in ("passivity", "reciprocity", "symmetry", "line-window", "contact"):
+        return _QUANTITY[base]  # fixed by what the check computes
+    found = re.search(r"\|?S(\d)(\d)\|?", check.message or "")
+    if found and found.group(1) != found.group(2):
+        return f"S{found.group(1)}{found.group(2)} ({found.group(2)}→{found.group(1)})"
+    if found:
+        return f"S{found.group(1)}{found.group(2)} (port {found.group(1)})"
+    return _QUANTITY.get(check.name.split(" ")[0], "")
+
+
 def checks_table(checks: Iterable[CheckResult], wide: bool = True) -> Group:
-    """One row per check (verdict word, name, figure, limit, where), then the
-    sentence of every check that did not pass, wrapped, so the reason reads in full."""
+    """One row per check (verdict word, name and what its figure is of, figure,
+    limit, where), then the sentence of every check that did not pass, wrapped, so
+    the reason reads in full. Narrow: two lines a check, nothing cut."""
     checks = list(checks)
+    why = [Text.assemble((f"{_LOOK[c.verdict][1]} {c.name}: ", "bold"), c.message)
+           for c in checks if c.verdict in (Verdict.FAIL, Verdict.WARN) and c.message]
+    if not wide:
+        lines = []
+        for c in checks:
+            line = Text.assemble((verdict_word(c.verdict), _STYLES[c.verdict]), " ", (c.name, "bold"))
+            what = quantity_of(c)
+            if what:
+                line.append(f" · {what}", "dim")
+            lines.append(line)
+            lines.append(Text(f"    {format_figure(c.value, c.unit)}  limit {format_figure(c.limit, c.unit)}"
+                              f"  {format_ghz(c.at_hz)}", no_wrap=True, overflow="ellipsis"))
+        return Group(*lines, *why)
     table = Table(box=None, expand=True, pad_edge=False, show_edge=False)
     table.add_column("verdict", no_wrap=True, min_width=6)
     # the check name gives way first: figure and limit are what the operator reads
     table.add_column("check", no_wrap=True, overflow="ellipsis", ratio=1, min_width=4)
     table.add_column("figure", justify="right", no_wrap=True)
     table.add_column("limit", justify="right", no_wrap=True)
-    if wide:  # where the figure is worst; dropped on narrow terminals
-        table.add_column("at", justify="right", no_wrap=True)
+    table.add_column("at", justify="right", no_wrap=True)
     for c in checks:
-        cells = [Text(verdict_word(c.verdict), style=_STYLES[c.verdict]), c.name,
-                 format_figure(c.value, c.unit), format_figure(c.limit, c.unit)]
-        table.add_row(*cells, *([format_ghz(c.at_hz)] if wide else []))
-    why = [Text.assemble((f"{_LOOK[c.verdict][1]} {c.name}: ", "bold"), c.message)
-           for c in checks if c.verdict in (Verdict.FAIL, Verdict.WARN) and c.message]
+        what = quantity_of(c)
+        name = Text(c.name)
+        if what:
+            name.append(f" {what}", style="dim")
+        table.add_row(Text(verdict_word(c.verdict), style=_STYLES[c.verdict]), name,
+                      format_figure(c.value, c.unit), format_figure(c.limit, c.unit), format_ghz(c.at_hz))
     return Group(table, *why)
 
 
@@ -83,7 +128,7 @@ class VerdictBoard(Vertical):
     VerdictBoard { height: auto; border: round $secondary; padding: 0 1; }
     VerdictBoard #big { height: 3; text-style: bold; content-align: center middle; width: 100%; }
     VerdictBoard #caption { height: 1; width: 100%; content-align: center middle; }
-    VerdictBoard #checks { height: auto; max-height: 14; }
+    VerdictBoard #checks-scroll { height: auto; max-height: 14; }
     VerdictBoard.v-pass { border: heavy $success; }
     VerdictBoard.v-pass #big { color: $success; }
     VerdictBoard.v-warn { border: heavy $warning; }
@@ -91,29 +136,54 @@ class VerdictBoard(Vertical):
     VerdictBoard.v-fail { border: double $error; background: $error 15%; }
     VerdictBoard.v-fail #big { color: $error; }
     VerdictBoard.v-busy #big { color: $text-muted; }
+    VerdictBoard.v-error { border: double $error; background: $error 30%; }
+    VerdictBoard.v-error #big { color: $error; }
+    VerdictBoard.v-ref { border: dashed $secondary; }
+    VerdictBoard.v-ref #big { color: $text-muted; }
     """
 
     verdict: reactive[Verdict | None] = reactive(None)
     status: reactive[str] = reactive("waiting for the first landing")
+    # "site" (a landing of the plan), "ref" (the drift reference), "error" (an
+    # instrument failed: stays until the operator retries or skips)
+    mode: str = "site"
 
     def compose(self) -> ComposeResult:
         yield Static(id="big")
         yield Static(id="caption")
-        yield Static(id="checks")
+        with VerticalScroll(id="checks-scroll"):
+            yield Static(id="checks")
 
     def show_checks(self, checks: list[CheckResult], caption: str,
-                    verdict: Verdict | None = None) -> None:
-        """Show a finished set of checks; the overall verdict is the worst one."""
-        self._set_checks(checks_table(checks, wide=self.size.width >= 56))
+                    verdict: Verdict | None = None, reference: bool = False) -> None:
+        """Show a finished set of checks; the overall verdict is the worst one.
+        ``reference``: the drift reference, not a site of the plan (another look)."""
+        self.mode = "ref" if reference else "site"
+        self._set_checks(checks_table(checks, wide=self.size.width >= 64))
         self.status = caption
         self.verdict = verdict if verdict is not None else overall(checks)
         self.mutate_reactive(VerdictBoard.verdict)
 
     def show_busy(self, what: str) -> None:
         """The bench is working: no verdict until the sweep is checked."""
+        self.mode = "site"
         self.verdict = None
         self.status = what
         self._set_checks("")
+        self.mutate_reactive(VerdictBoard.verdict)
+
+    def show_error(self, title: str, todo: str, detail: str) -> None:
+        """An instrument failed: what failed, what to do, the instrument's words.
+        Stays until the next show_busy / show_checks (a retry or a skip)."""
+        self.mode = "error"
+        self.status = title
+        self._set_checks(Group(Text(todo, style="bold"), Text(""), Text(detail, style="dim")))
+        self.verdict = None
+        self.mutate_reactive(VerdictBoard.verdict)
+
+    @property
+    def in_error(self) -> bool:
+        return self.mode == "error"
 
     def _set_checks(self, content: Any) -> None:
         """Put the checks table up. A layout pass (which measures the whole table)
@@ -125,16 +195,26 @@ class VerdictBoard(Vertical):
 
     def watch_verdict(self, verdict: Verdict | None) -> None:
         big = self.query_one("#big", Static)
-        look = "v-busy" if verdict is None else _LOOK[verdict][3]
+        look = ("v-error" if self.mode == "error" else "v-ref" if self.mode == "ref"
+                else "v-busy" if verdict is None else _LOOK[verdict][3])
         # one restyle of the board for the change of look, not one per class touched
         for cls in _CLASSES:
             self.set_class(cls == look, cls, update=False)
         self.update_node_styles(animate=False)
+        if self.mode == "error":
+            big.update("\n".join(render_big("✖ ERROR")), layout=False)
+            self.border_title = "✖ INSTRUMENT ERROR: nothing recorded for this landing"
+            return
         if verdict is None:
             big.update(Text("· · ·", style="bold"), layout=False)
             self.border_title = "verdict"
             return
         word, sym, bigsym, _ = _LOOK[verdict]
+        if self.mode == "ref":  # small on purpose: not a landing of the plan
+            big.update(Text(f"drift reference  {sym} {word}\n(the reference site, not a site of the plan)",
+                            justify="center"), layout=False)
+            self.border_title = f"drift reference: {sym} {word}"
+            return
         rows = [s + "  " + w for s, w in zip(render_big(bigsym), render_big(word), strict=False)]
         big.update("\n".join(rows), layout=False)
         self.border_title = f"verdict: {sym} {word}"
@@ -146,6 +226,10 @@ class VerdictBoard(Vertical):
     def shown_text(self) -> str:
         """Plain text of the board (for tests and the journal cross-check)."""
         word = "" if self.verdict is None else verdict_word(self.verdict)
+        if self.mode == "ref":
+            word = f"drift reference {word}"
+        elif self.mode == "error":
+            word = "ERROR"
         return f"{word} {self.status}"
 
 

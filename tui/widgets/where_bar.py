@@ -27,7 +27,7 @@ class WhereBar(Static):
     """Three lines: position, next step, what the bench is doing."""
 
     DEFAULT_CSS = """
-    WhereBar { height: 3; padding: 0 1; background: $panel; }
+    WhereBar { height: 3; padding: 0 1; background: $panel; text-wrap: nowrap; text-overflow: ellipsis; }
     """
 
     def show(self, here: str, next_: str, doing: str, doing_style: str = "") -> None:

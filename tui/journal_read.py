@@ -1,0 +1,194 @@
+"""What the screens read out of the journal's events (dicts as written in
+journal.jsonl, docs/journal-events.md): line metrics per die, one die's history,
+the landings kept despite a FAIL, and the journal view's filter.
+
+Pure functions of the event list, so the screens stay thin and the tests can
+feed them a journal written by the real engine.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Iterable
+
+Die = tuple[int, int]
+
+# line metrics as the engine journals them (probelog.lines.JSON_KEYS): key -> (label, unit)
+METRIC_UNITS = {
+    "z0_ohm": ("|Z0|", "ohm"), "z0_re": ("Re Z0", "ohm"), "z0_im": ("Im Z0", "ohm"),
+    "eps_eff": ("eps_eff", ""), "alpha_db_per_mm": ("alpha", "dB/mm"),
+    "alpha_np_per_m": ("alpha", "Np/m"), "beta_rad_per_mm": ("beta", "rad/mm"),
+    "r_ohm_per_m": ("R", "ohm/m"), "l_h_per_m": ("L", "H/m"), "g_s_per_m": ("G", "S/m"),
+    "c_f_per_m": ("C", "F/m"), "q": ("Q", ""),
+}
+
+
+def as_dict(event: Any) -> dict:
+    """A journal event as the line's dict (seq, ts, type, payload), whether it came
+    as that dict or as a typed probelog.events.Event."""
+    if isinstance(event, dict):
+        return event
+    import msgspec
+
+    payload = msgspec.to_builtins(event.data)
+    return {"seq": event.seq, "ts": event.ts, "type": event.type,
+            "payload": payload if isinstance(payload, dict) else {}}
+
+
+def _die(p: dict) -> Die | None:
+    d = p.get("die")
+    return (int(d[0]), int(d[1])) if isinstance(d, (list, tuple)) and len(d) == 2 else None
+
+
+@dataclass(frozen=True)
+class MetricChoice:
+    """One colouring of the map: a metric of one site at one frequency (Hz)."""
+
+    site: str
+    key: str
+    f_hz: float
+
+    @property
+    def label(self) -> str:
+        name, unit = METRIC_UNITS.get(self.key, (self.key, ""))
+        return f"{name} of {self.site} at {self.f_hz / 1e9:.4g} GHz" + (f" ({unit})" if unit else "")
+
+
+def fold_metrics(events: Iterable[dict], into: dict[Die, dict[str, dict]] | None = None) -> dict[Die, dict[str, dict]]:
+    """Line metrics of the landing kept (accepted) on every (die, site):
+    die -> site -> {key: [values], "f_hz": [...]}. A rejected landing's figures
+    (a lifted tip gives nonsense) never colour the map."""
+    out: dict[Die, dict[str, dict]] = {} if into is None else into
+    pending: dict[tuple, dict] = {}
+    for ev in map(as_dict, events):
+        p = ev.get("payload") or {}
+        die = _die(p)
+        if die is None:
+            continue
+        key = (die, str(p.get("site")), p.get("landing"))
+        if ev.get("type") == "landing" and isinstance(p.get("metrics"), dict):
+            pending[key] = p["metrics"]
+        elif ev.get("type") == "decision" and p.get("action") == "accept" and key in pending:
+            out.setdefault(die, {})[key[1]] = pending.pop(key)
+    return out
+
+
+def metric_choices(metrics: dict[Die, dict[str, dict]]) -> list[tuple[str, str]]:
+    """(site, key) pairs that hold numbers somewhere on the wafer, sorted."""
+    found = set()
+    for sites in metrics.values():
+        for site, m in sites.items():
+            for key, v in m.items():
+                if key != "f_hz" and isinstance(v, list) and any(isinstance(x, (int, float)) for x in v):
+                    found.add((site, key))
+    return sorted(found)
+
+
+def metric_frequencies(metrics: dict[Die, dict[str, dict]], site: str) -> list[float]:
+    """The frequencies (Hz) the site's metrics were journaled at."""
+    for sites in metrics.values():
+        f = (sites.get(site) or {}).get("f_hz")
+        if isinstance(f, list) and f:
+            return [float(x) for x in f]
+    return []
+
+
+def metric_values(metrics: dict[Die, dict[str, dict]], choice: MetricChoice) -> dict[Die, float]:
+    """The chosen metric on every die that has it, at the journaled frequency
+    nearest the chosen one."""
+    out: dict[Die, float] = {}
+    for die, sites in metrics.items():
+        m = sites.get(choice.site) or {}
+        vals, f = m.get(choice.key), m.get("f_hz")
+        if not isinstance(vals, list) or not vals:
+            continue
+        i = 0
+        if isinstance(f, list) and len(f) == len(vals):
+            i = min(range(len(f)), key=lambda k: abs(float(f[k]) - choice.f_hz))
+        v = vals[i]
+        if isinstance(v, (int, float)):
+            out[die] = float(v)
+    return out
+
+
+def kept_despite_fail(events: Iterable[dict]) -> dict[Die, list[str]]:
+    """Dies with a landing accepted although its verdict was FAIL: die -> sites."""
+    verdicts: dict[tuple, str] = {}
+    out: dict[Die, list[str]] = {}
+    for ev in map(as_dict, events):
+        p = ev.get("payload") or {}
+        die = _die(p)
+        if die is None:
+            continue
+        key = (die, p.get("site"), p.get("landing"))
+        if ev.get("type") == "landing":
+            verdicts[key] = str(p.get("verdict"))
+        elif ev.get("type") == "decision" and (p.get("action") == "accept-despite-fail" or (
+                p.get("action") == "accept" and verdicts.get(key) == "fail")):
+            out.setdefault(die, []).append(str(p.get("site")))
+    return out
+
+
+def die_history(events: Iterable[dict], die: Die) -> list[str]:
+    """Landings, decisions and notes on one die, one line each, oldest first."""
+    from probelog.tui.widgets.verdict_board import verdict_word_of
+
+    lines = []
+    for ev in map(as_dict, events):
+        p = ev.get("payload") or {}
+        if _die(p) != die:
+            continue
+        t = ev.get("type")
+        if t in ("landing", "drift"):
+            extra = "  (drift reference)" if t == "drift" else ""
+            lines.append(f"#{ev.get('seq')} {p.get('site')} L{p.get('landing')}: "
+                         f"{verdict_word_of(p.get('verdict'))}{extra}")
+        elif t == "decision":
+            reason = f" — {p['reason']}" if p.get("reason") else ""
+            lines.append(f"#{ev.get('seq')} {p.get('site')} L{p.get('landing')}: {p.get('action')}{reason}")
+        elif t == "die-skipped":
+            lines.append(f"#{ev.get('seq')} die skipped ({', '.join(p.get('sites') or [])}) — {p.get('reason', '')}")
+        elif t == "note":
+            lines.append(f"#{ev.get('seq')} note at {p.get('site')}: “{p.get('text', '')}”")
+    return lines
+
+
+def event_matches(ev: dict, words: list[str]) -> bool:
+    """The journal view's filter: every word must match the event's die ("3,4"),
+    its site (a part of the name) or its type (a part of it)."""
+    ev = as_dict(ev)
+    p = ev.get("payload") or {}
+    die = _die(p)
+    die_txt = f"{die[0]},{die[1]}" if die else ""
+    site = str(p.get("site") or p.get("standard") or "").lower()
+    kind = str(ev.get("type", "")).lower()
+    for w in words:
+        w = w.lower().strip()
+        if not w:
+            continue
+        if w.startswith("die:"):
+            if w[4:] != die_txt:
+                return False
+        elif w.startswith("site:"):
+            if w[5:] not in site:
+                return False
+        elif w.startswith("type:"):
+            if w[5:] not in kind:
+                return False
+        elif not (w == die_txt or w in site or w in kind):
+            return False
+    return True
+
+
+def is_resume(ev: dict) -> bool:
+    """The journal's mark of a session reopened after a quit or a crash."""
+    ev = as_dict(ev)
+    return ev.get("type") in ("recovered", "session-resumed")
+
+
+def position_of(outcome: Any, step: Any) -> tuple[Die, str] | None:
+    """(die, site) the operator is looking at: the landing on screen, else the next step."""
+    for s in (getattr(outcome, "step", None), step):
+        if s is not None:
+            return (int(s.die[0]), int(s.die[1])), str(s.site)
+    return None
