@@ -1,5 +1,5 @@
 """What the screens read out of the journal's events (dicts as written in
-journal.jsonl, docs/journal-events.md): line metrics per die, one die's history,
+journal.jsonl, docs/journal-events.md, or typed events): line metrics per die,
 the landings kept despite a FAIL, and the journal view's filter.
 
 Pure functions of the event list, so the screens stay thin and the tests can
@@ -127,30 +127,6 @@ def kept_despite_fail(events: Iterable[dict]) -> dict[Die, list[str]]:
                 p.get("action") == "accept" and verdicts.get(key) == "fail")):
             out.setdefault(die, []).append(str(p.get("site")))
     return out
-
-
-def die_history(events: Iterable[dict], die: Die) -> list[str]:
-    """Landings, decisions and notes on one die, one line each, oldest first."""
-    from probelog.tui.widgets.verdict_board import verdict_word_of
-
-    lines = []
-    for ev in map(as_dict, events):
-        p = ev.get("payload") or {}
-        if _die(p) != die:
-            continue
-        t = ev.get("type")
-        if t in ("landing", "drift"):
-            extra = "  (drift reference)" if t == "drift" else ""
-            lines.append(f"#{ev.get('seq')} {p.get('site')} L{p.get('landing')}: "
-                         f"{verdict_word_of(p.get('verdict'))}{extra}")
-        elif t == "decision":
-            reason = f" — {p['reason']}" if p.get("reason") else ""
-            lines.append(f"#{ev.get('seq')} {p.get('site')} L{p.get('landing')}: {p.get('action')}{reason}")
-        elif t == "die-skipped":
-            lines.append(f"#{ev.get('seq')} die skipped ({', '.join(p.get('sites') or [])}) — {p.get('reason', '')}")
-        elif t == "note":
-            lines.append(f"#{ev.get('seq')} note at {p.get('site')}: “{p.get('text', '')}”")
-    return lines
 
 
 def event_matches(ev: dict, words: list[str]) -> bool:

@@ -154,6 +154,7 @@ class FakeEngine:
         self._touch = dict.fromkeys(PROBES, 0)
         self._last: LandingOutcome | None = None
         self._drift_due = False
+        self._last_std: str | None = None
         self._walk_from = 0  # index into the site sequence; goto() moves it
         self.calls: list[str] = []
         if _resume:
@@ -187,8 +188,8 @@ class FakeEngine:
         self.journal.append("recovered", {"torn_line": None, "adopted": [], "message": "reopened"})
 
     # ------------------------------------------------------------ view
-    def subscribe(self, cb: Callable) -> None:
-        self._subs.append(cb)
+    def subscribe(self, callback: Callable) -> None:
+        self._subs.append(callback)
 
     def _emit(self, ev: Any) -> None:
         for cb in self._subs:
@@ -210,6 +211,19 @@ class FakeEngine:
     @property
     def session_dir(self) -> Path:
         return self.journal.root
+
+    @property
+    def last_standard(self) -> str | None:
+        """The standard measured last in the cal being measured (re-landed with reland())."""
+        return self._last_std if self._phase is Phase.CALIBRATING else None
+
+    @property
+    def session_id(self) -> str:
+        return self.journal.root.name
+
+    def summary(self) -> dict[str, Any]:
+        acts = list(self._finished.values())
+        return {"sites": len(DIES) * len(SITES), "accepted": acts.count("accept"), "skipped": acts.count("skip")}
 
     @property
     def progress(self) -> tuple[int, int]:
@@ -288,6 +302,7 @@ class FakeEngine:
                     "site": step.site, "kind": step.site_kind, "landing": step.landing, "raw": None,
                     "checks": [c.to_json() for c in checks], "verdict": verdict.value})
                 self._std[step.standard] = verdict
+                self._last_std = step.standard
                 out = LandingOutcome(step, net, None, checks, verdict, None, seq)
                 self._emit(StepMeasured(seq=seq, outcome=out))
                 return out
@@ -366,7 +381,7 @@ class FakeEngine:
                 raise ValueError("a reason is needed to redo the calibration")
             seq = self.journal.append("cal-rejected", {"cal_id": f"cal{self._cal_n}", "reason": reason})
             self._cal_n += 1
-            self._std, self._pending = {}, None
+            self._std, self._pending, self._last_std = {}, None, None
             self._set_phase(Phase.CALIBRATING, seq)
 
     def _decide(self, action: str, reason: str, landing_verdict_needs_reason: bool = False) -> None:
@@ -397,7 +412,7 @@ class FakeEngine:
             return
         self._decide("accept", reason)
 
-    def skip_die(self, die: tuple[int, int], reason: str) -> None:
+    def skip_die(self, die: tuple[int, int], reason: str) -> list[str]:
         """Skip every undecided site of ``die`` with one reason: one ``die-skipped``
         event; PROBING only (as the engine)."""
         if not reason.strip():
@@ -415,8 +430,23 @@ class FakeEngine:
                                             action="skip", reason=reason))
             done = len(self._finished) == len(DIES) * len(SITES)
             self._set_phase(Phase.DONE if done else Phase.PROBING, seq)
+            return sites
 
     def reland(self, reason: str = "") -> None:
+        if self._phase is Phase.CALIBRATING:  # the standard measured last, again
+            with self._lock:
+                std = self._last_std
+                if std is None:
+                    raise RuntimeError("no standard measured yet in this calibration to re-land")
+                site = next(s for n, s, _ in STANDARDS if n == std)
+                seq = self.journal.append("decision", {"die": list(CAL_DIE), "site": site, "landing": 1,
+                                                       "action": "reland", "reason": reason, "standard": std,
+                                                       "cal_id": f"cal{self._cal_n}"})
+                del self._std[std]
+                self._last_std = None
+                self._emit(DecisionRecorded(seq=seq, die=CAL_DIE, site=site, landing=1, action="reland",
+                                            reason=reason))
+            return
         self._decide("reland", reason)
 
     def skip(self, reason: str) -> None:
@@ -457,7 +487,7 @@ class FakeEngine:
         with self._lock:
             seq = self.journal.append("recal-requested", {"reason": reason})
             self._cal_n += 1
-            self._std = {}
+            self._std, self._last_std = {}, None
             self._set_phase(Phase.CALIBRATING, seq)
 
     def close(self, completed: bool | None = None) -> None:

@@ -23,6 +23,7 @@ from probelog.tui.messages import ChecksFinished, DecisionRecorded, LandingStart
 from probelog.tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
 from probelog.tui.screens.dialogs import Confirm
 from probelog.tui.screens.wafer import WaferView, cal_die_of
+from probelog.tui.screens.wafer import die_history as die_history  # one history for the panel and the tests
 from probelog.tui.widgets.bench_footer import BenchFooter
 from probelog.tui.widgets.die_map import DieMap
 from probelog.tui.widgets.logbook import Logbook

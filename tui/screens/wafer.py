@@ -18,10 +18,38 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Static
 
-from probelog.tui.journal_read import (MetricChoice, as_dict, die_history, fold_metrics, kept_despite_fail, metric_choices,
+from probelog import state as st
+from probelog import state_views as sv
+from probelog.state import SessionState
+from probelog.tui.journal_read import (MetricChoice, as_dict, fold_metrics, kept_despite_fail, metric_choices,
                               metric_frequencies, metric_values)
 from probelog.tui.widgets.bench_footer import BenchFooter
 from probelog.tui.widgets.die_map import STATUS_WORD, DieMap, legend
+from probelog.tui.widgets.verdict_board import verdict_word_of
+
+
+def die_history(state: SessionState, die: tuple[int, int]) -> list[str]:
+    """Landings and decisions on one die, one line each, from the session state
+    (an accepted FAIL shows as accept-despite-fail with its reason)."""
+    lines = []
+    for _seq, site, rec in sv.die_history(state, die):
+        if isinstance(rec, st.LandingRec):
+            what = "" if rec.what == "landing" else f" ({rec.what})"
+            lines.append(f"{site} L{rec.landing}{what}: {verdict_word_of(rec.verdict.value)}")
+        else:
+            reason = f" ({rec.reason})" if rec.reason else ""
+            lines.append(f"{site} L{rec.landing}: {rec.action}{reason}")
+    return lines
+
+
+def history_panel(state: SessionState, die: tuple[int, int]) -> list[str]:
+    """The die history panel: the state's landings and decisions, with the notes
+    taken on the die, in journal order."""
+    rows = [(seq, f"#{seq} {line}") for (seq, _s, _r), line in zip(sv.die_history(state, die),
+                                                                   die_history(state, die), strict=True)]
+    rows += [(n.seq, f"#{n.seq} note at {n.site}: “{n.text}”") for n in state.notes
+             if n.die is not None and tuple(n.die) == tuple(die)]
+    return [text for _, text in sorted(rows)]
 
 
 def cal_die_of(events: list[dict]) -> tuple[int, int] | None:
@@ -132,7 +160,7 @@ class WaferView(ModalScreen[tuple[str, tuple[int, int]] | None]):
         cur = self.query_one(DieMap).cursor
         if not panel.display or cur is None:
             return
-        lines = die_history(self.events, cur)
+        lines = history_panel(self.engine.state, cur)
         panel.border_title = f"die {cur[0]},{cur[1]} history (h closes)"
         panel.update("\n".join(lines[-30:]) if lines else "nothing measured on this die yet")
 
