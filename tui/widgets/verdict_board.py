@@ -87,9 +87,10 @@ def quantity_of(check: CheckResult) -> str:
 
 
 def checks_table(checks: Iterable[CheckResult], wide: bool = True) -> Group:
-    """One row per check (verdict word, name and what its figure is of, figure,
-    limit, where), then the sentence of every check that did not pass, wrapped, so
-    the reason reads in full. Narrow: two lines a check, nothing cut."""
+    """The sentence of every check that did not pass first, wrapped, so the reason
+    reads in full without scrolling; then one row per check (verdict word, name
+    and what its figure is of, figure, limit, where). Narrow: two lines a check,
+    nothing cut."""
     checks = list(checks)
     why = [Text.assemble((f"{_LOOK[c.verdict][1]} {c.name}: ", "bold"), c.message)
            for c in checks if c.verdict in (Verdict.FAIL, Verdict.WARN) and c.message]
@@ -103,7 +104,7 @@ def checks_table(checks: Iterable[CheckResult], wide: bool = True) -> Group:
             lines.append(line)
             lines.append(Text(f"    {format_figure(c.value, c.unit)}  limit {format_figure(c.limit, c.unit)}"
                               f"  {format_ghz(c.at_hz)}", no_wrap=True, overflow="ellipsis"))
-        return Group(*lines, *why)
+        return Group(*why, *([Text("")] if why else []), *lines)
     table = Table(box=None, expand=True, pad_edge=False, show_edge=False)
     table.add_column("verdict", no_wrap=True, min_width=6)
     # the check name gives way first: figure and limit are what the operator reads
@@ -118,7 +119,7 @@ def checks_table(checks: Iterable[CheckResult], wide: bool = True) -> Group:
             name.append(f" {what}", style="dim")
         table.add_row(Text(verdict_word(c.verdict), style=_STYLES[c.verdict]), name,
                       format_figure(c.value, c.unit), format_figure(c.limit, c.unit), format_ghz(c.at_hz))
-    return Group(table, *why)
+    return Group(*why, *([Text("")] if why else []), table)
 
 
 class VerdictBoard(Vertical):
