@@ -31,7 +31,8 @@ import msgspec
 
 from probelog.verdicts import CheckResult, Verdict
 
-SCHEMA = 2  # 1: before typed events (no ``schema`` key); 2: typed events, session-resumed, die-skipped
+SCHEMA = 3  # 1: before typed events (no ``schema`` key); 2: typed events, session-resumed, die-skipped;
+# 3: precheck
 
 Die = tuple[int, int]
 
@@ -228,6 +229,27 @@ class Landing(_Record, frozen=True):
     touchdowns: dict[str, int] = {}
 
 
+class Precheck(_Record, frozen=True):
+    """A contact pre-check that failed: the short fast sweep right after touchdown
+    (``settings``: a few points over the plan's band at a wide IF bandwidth),
+    judged only for gross contact against the active cal's raw open and short.
+    A FAIL landing of its own kind: it takes landing number ``landing`` on (die,
+    site), waits for a decision like any FAIL, and no full sweep was taken. Only
+    failed pre-checks are journaled; a passed one goes on to the full sweep."""
+
+    TYPE: ClassVar[str] = "precheck"
+    die: Die
+    site: str
+    landing: int
+    kind: str = ""
+    cal_id: str | None = None
+    raw: FileRef | None = None
+    settings: Settings = Settings()
+    checks: list[Check] = []
+    verdict: Verdict = Verdict.FAIL
+    touchdowns: dict[str, int] = {}
+
+
 class Drift(_Record, frozen=True):
     """A drift re-measure; ``reference_seq`` None means this landing is the new reference."""
 
@@ -340,12 +362,12 @@ class UnknownEvent:
 Payload = Union[
     SessionOpened, SessionResumed, CautionsShown, CalStandard, CalComputed, CalVerification,
     CalAgreement, CalAccepted, CalRejected, RecalRequested, Landing, Drift, Decision, DieSkipped,
-    Note, Goto, InstrumentError, Recovered, SessionClosed, LineFigures,
+    Note, Goto, InstrumentError, Recovered, SessionClosed, LineFigures, Precheck,
 ]
 EVENT_CLASSES: tuple[type[_Record], ...] = (
     SessionOpened, SessionResumed, CautionsShown, CalStandard, CalComputed, CalVerification,
     CalAgreement, CalAccepted, CalRejected, RecalRequested, Landing, Drift, Decision, DieSkipped,
-    Note, Goto, InstrumentError, Recovered, SessionClosed, LineFigures,
+    Note, Goto, InstrumentError, Recovered, SessionClosed, LineFigures, Precheck,
 )
 BY_TYPE: dict[str, type[_Record]] = {c.TYPE: c for c in EVENT_CLASSES}
 AnyPayload = Union[Payload, UnknownEvent]

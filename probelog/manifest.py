@@ -357,7 +357,7 @@ def index_session(journal: Journal) -> SessionIndex:
                 "width_um": width, "gap_um": gap, "length_um": geo.get("length_um"),
                 "w_over_g": (width / gap) if width and gap else None,
                 "landing": kept.landing,
-                "retries": sum(1 for x in rec.landings if x.what == "landing" and x.seq != kept.seq),
+                "retries": sum(1 for x in rec.landings if x.what in ("landing", "precheck") and x.seq != kept.seq),
                 "cal_id": kept.cal_id or "",
                 "raw_file": kept.raw.path if kept.raw else "", "raw_sha256": kept.raw.sha256 if kept.raw else "",
                 "corrected_file": kept.corrected.path if kept.corrected else "",

@@ -249,10 +249,11 @@ def _cal_computed(s: SessionState, e: ev.Event, d: ev.CalComputed) -> SessionSta
     return _replace(s, **changes, pending=rec, cals={**s.cals, d.cal_id: rec}, phase=VERIFYING)
 
 
-def _landing_rec(e: ev.Event, d: ev.Landing | ev.Drift | ev.CalVerification, what: str) -> LandingRec:
+def _landing_rec(e: ev.Event, d: ev.Landing | ev.Drift | ev.CalVerification | ev.Precheck,
+                 what: str) -> LandingRec:
     return LandingRec(seq=e.seq, ts=e.ts, landing=d.landing, what=what, verdict=d.verdict,
                       cal_id=d.cal_id, kind=getattr(d, "kind", ""), checks=tuple(d.checks),
-                      metrics=getattr(d, "metrics", None), raw=d.raw, corrected=d.corrected)
+                      metrics=getattr(d, "metrics", None), raw=d.raw, corrected=getattr(d, "corrected", None))
 
 
 def _cal_verification(s: SessionState, e: ev.Event, d: ev.CalVerification) -> SessionState:
@@ -298,6 +299,16 @@ def _landing(s: SessionState, e: ev.Event, d: ev.Landing) -> SessionState:
     old = s.site(d.die, d.site)
     rec = _replace(old, landings=(*old.landings, _landing_rec(e, d, "landing")), count=d.landing,
                    previous=(d.corrected or d.raw) if d.verdict is not Verdict.FAIL else old.previous)
+    return _with_site(s, d.die, d.site, rec, touchdowns=_touch(s, d.touchdowns), phase=DECIDING,
+                      awaiting=(d.die, d.site, d.landing), n_landings=s.n_landings + 1,
+                      since_drift=s.since_drift + 1)
+
+
+def _precheck(s: SessionState, e: ev.Event, d: ev.Precheck) -> SessionState:
+    # a FAIL landing without a full sweep: it waits for a decision, never becomes
+    # the repeatability reference
+    old = s.site(d.die, d.site)
+    rec = _replace(old, landings=(*old.landings, _landing_rec(e, d, "precheck")), count=d.landing)
     return _with_site(s, d.die, d.site, rec, touchdowns=_touch(s, d.touchdowns), phase=DECIDING,
                       awaiting=(d.die, d.site, d.landing), n_landings=s.n_landings + 1,
                       since_drift=s.since_drift + 1)
@@ -389,4 +400,5 @@ _HANDLERS: dict[type, Any] = {
     ev.DieSkipped: _die_skipped, ev.Note: _note, ev.Goto: _goto, ev.InstrumentError: _instrument_error,
     ev.Recovered: _recovered, ev.SessionClosed: _closed,
     ev.LineFigures: _same,  # derived figures on record; nothing in the walk depends on them
+    ev.Precheck: _precheck,
 }

@@ -24,7 +24,7 @@ class LandingRec(_S, frozen=True):
     seq: int
     ts: str
     landing: int
-    what: str  # "landing", "drift", "verification"
+    what: str  # "landing", "drift", "verification", "precheck" (a failed contact pre-check)
     verdict: Verdict
     cal_id: str | None = None
     kind: str = ""

@@ -180,6 +180,7 @@ class FakeVna:
         self.settings: SweepSettings | None = None
         self.faults: dict[tuple, list[str]] = {}
         self.sweeps = 0
+        self.prechecks = 0
         self.drift_db = 0.0
 
     def identify(self):
@@ -207,6 +208,18 @@ class FakeVna:
         if self.drift_db:
             ntwk.s = ntwk.s * 10 ** (self.drift_db / 20)
         return ntwk
+
+    def precheck_sweep(self, settings, ports=2):
+        """The contact pre-check: one sweep with ``settings``, then the plan's back
+        (a fault word is consumed by it like by any sweep)."""
+        if self.settings is None or settings.power_dbm > self.settings.power_dbm:
+            raise ValueError("pre-check before configure, or above the configured power")
+        base, self.settings = self.settings, settings
+        self.prechecks += 1
+        try:
+            return self.sweep(ports)
+        finally:
+            self.settings = base
 
     def close(self):
         pass

@@ -64,7 +64,7 @@ def run(seed: int, n_dies: int, faults: list[str], root: Path) -> RunResult:
     folder = next(out_dir.iterdir())
     res = RunResult(exit_code=code)
     for e in Journal.open(folder).events():
-        if e.type == "landing" and e.payload.get("landing") == 1:
+        if e.type in ("landing", "precheck") and e.payload.get("landing") == 1:  # a failed pre-check too
             res.landings.append(e.payload)
         if e.type == "cal-accepted":
             res.cal_accepted = True

@@ -54,6 +54,9 @@ SAMPLES: list[ev.Payload] = [
     ev.SessionClosed(completed=True, summary={"accepted": 3}),
     ev.LineFigures(die=(2, 1), family="cpw/M9/10x6um", site_a="ln-a", site_b="ln-b", length_a_um=500.0,
                    length_b_um=1500.0, metrics={"f_hz": [4e10], "eps_eff": [6.61], "z0_re": [None]}),
+    ev.Precheck(die=(1, 2), site="ln", landing=3, kind="line", cal_id="cal1", raw=REF,
+                settings=ev.Settings(1e9, 110e9, 11, 1e5, -10.0), checks=[CHECK], verdict=Verdict.FAIL,
+                touchdowns={"west": 7}),
 ]
 
 

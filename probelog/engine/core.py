@@ -149,6 +149,11 @@ class EngineCore:
 
     def _land(self, die: Die, site_name: str) -> skrf.Network:
         """Separate, move at separation, contact, sweep. Counts touchdowns."""
+        return self._sweep(self._touch_down(die, site_name))
+
+    def _touch_down(self, die: Die, site_name: str) -> Any:
+        """Configure the VNA, separate, move at separation, contact; counts
+        touchdowns. Returns the plan's site."""
         site = self.view.site(site_name)
         self._configure()
         prober = self.bench.prober
@@ -165,6 +170,10 @@ class EngineCore:
             counted = dict.fromkeys(self._touchdowns, 1)  # prober keeps no count: one per landing
         for p, n in counted.items():
             self._touchdowns[p] = self._touchdowns.get(p, 0) + max(n, 0)
+        return site
+
+    def _sweep(self, site: Any) -> skrf.Network:
+        """The plan's sweep of ``site`` (probes down)."""
         try:
             net: skrf.Network = self.bench.vna.sweep(ports=int(getattr(site, "ports", 2)))
         except Exception as exc:

@@ -25,6 +25,10 @@ class Policy(Walk):
         with self._busy():
             self._require_phase(Phase.DECIDING)
             die, site, landing = self._awaiting()
+            rec = self.state.site(die, site).landings
+            if rec and rec[-1].what == "precheck" and rec[-1].landing == landing:
+                raise EngineError(f"die {die[0]},{die[1]} site {site}: the contact pre-check failed and no sweep "
+                                  "was taken, so there is nothing to keep; re-land, skip or give up")
             last = self.state.site(die, site).last_landing
             if last is not None and last.verdict is Verdict.FAIL:
                 reason = need_reason(reason, f"accept a FAIL landing on die {die[0]},{die[1]} site {site}")

@@ -81,7 +81,8 @@ class Step:
 
 @dataclass
 class LandingOutcome:
-    """One measured landing (site, cal standard, verification or drift)."""
+    """One measured landing (site, cal standard, verification, drift or a failed
+    contact pre-check)."""
 
     step: Step
     raw: skrf.Network
@@ -91,6 +92,7 @@ class LandingOutcome:
     metrics: dict[str, list[float | None]] | None
     seq: int
     files: dict[str, str] = field(default_factory=dict)
+    precheck: bool = False  # a failed contact pre-check: raw is its short sweep, no full sweep taken
 
 
 @dataclass(frozen=True)

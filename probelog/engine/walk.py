@@ -12,13 +12,14 @@ import skrf
 from probelog import events as ev
 from probelog.bench import Die
 from probelog.engine.calstep import CalStep
+from probelog.engine.precheck import PrecheckStep
 from probelog.engine.store import die_dir
 from probelog.engine.types import (DriftChecked, EngineError, JumpedToDie, LandingOutcome, Phase,
                                    RecalibrationAdvised, Step, StepKind, StepMeasured)
 from probelog.verdicts import Verdict, overall
 
 
-class Walk(CalStep):
+class Walk(CalStep, PrecheckStep):
     """Stepping through the plan's dies and sites."""
 
     @property
@@ -85,10 +86,13 @@ class Walk(CalStep):
         return calset.apply(raw) if calset is not None else None
 
     def _measure_site(self, step: Step) -> LandingOutcome:
-        raw = self._land(step.die, step.site)
+        site = self._touch_down(step.die, step.site)
+        failed = self._precheck(step, site)  # a tip in the air is caught in milliseconds
+        if failed is not None:
+            return failed
+        raw = self._sweep(site)
         cor = self._correct(raw)
         use = cor if cor is not None else raw
-        site = self.view.site(step.site)
         from probelog.engine.evidence import gather
 
         evidence = gather(self, step.die, step.site, use.f) if cor is not None else None
