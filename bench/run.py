@@ -64,7 +64,7 @@ def best_of(fn: Callable[[], object], repeat: int = 7, number: int = 1) -> float
 
 
 def demo_plan(points: int, sites: list[str] | None = None, dies: str | None = None,
-              drift_every: int | None = None):
+              drift_every: int | None = None, precheck: bool = True):
     """The built-in demo plan with another point count (and optionally other sites/dies)."""
     from importlib import resources
 
@@ -80,6 +80,8 @@ def demo_plan(points: int, sites: list[str] | None = None, dies: str | None = No
         text = re.sub(r"(?ms)^dies = \[.*?\]\n", f"dies = {dies}\n", text, count=1)
     if drift_every is not None:
         text = re.sub(r"(?m)^drift_every_landings = \d+", f"drift_every_landings = {drift_every}", text)
+    if not precheck:
+        text += "\n[precheck]\nenabled = false\n"
     return load_plan_text(text, "demo.toml (bench)", base_dir=Path(str(ref)).parent)
 
 
@@ -170,7 +172,8 @@ def bench_landing(quick: bool):
         rig = SimRig()
         with tempfile.TemporaryDirectory() as tmp:
             tmp = Path(tmp)
-            plan = demo_plan(points, sites=["ln-cpw-m9-r2-l500"], drift_every=100000)
+            # the bare script sweeps once: compare like with like (the pre-check has its own row)
+            plan = demo_plan(points, sites=["ln-cpw-m9-r2-l500"], drift_every=100000, precheck=False)
             engine = calibrated_engine(rig, plan, tmp / "sessions")
             assert engine.phase in (Phase.PROBING, Phase.DECIDING), engine.phase
 
@@ -439,6 +442,16 @@ def bench_resume(quick: bool):
         rig.close()
 
 
+# ---------------------------------------------------------------- contact pre-check
+
+
+def bench_precheck(quick: bool):
+    sys.path.insert(0, str(ROOT / "bench"))
+    from precheck import measure_precheck  # bench/precheck.py: realistic sweep time, modelled clock
+
+    measure_precheck(report, quick, calibrated_engine)
+
+
 # ---------------------------------------------------------------- 7. UI
 
 
@@ -461,6 +474,7 @@ BENCHES = {
     "checks": bench_checks,
     "journal": bench_journal,
     "landing": bench_landing,
+    "precheck": bench_precheck,
     "scale": bench_scale,
     "resume": bench_resume,
     "ui": bench_ui,

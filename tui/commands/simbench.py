@@ -37,6 +37,15 @@ def _nonnegative(text: str) -> float:
     return value
 
 
+def _sweep_time(text: str) -> float:
+    from probelog.drivers.simbench.sweeptime import sweep_time_scale
+
+    try:
+        return sweep_time_scale(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--seed", type=int, default=0, help="seed of process variation, noise and chance faults")
     parser.add_argument("--vna-port", type=_port, default=0, help="TCP port of the VNA (0 = a free port)")
@@ -45,8 +54,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="KIND[@COL,ROW[:SITE]][#N], e.g. lifted-1@4,4:cal-thru; repeatable")
     parser.add_argument("--fault-rate", type=_fraction, default=0.0,
                         help="chance of a fault at each landing, 0..1 (demo)")
-    parser.add_argument("--sweep-time-scale", type=_nonnegative, default=0.0,
-                        help="1 = realistic sweep time (points / IF bandwidth), 0 = instant")
+    parser.add_argument("--sweep-time-scale", type=_sweep_time, default=0.0, metavar="SCALE|off|realistic",
+                        help="realistic (= 1): sweeps take their modelled time (points / IF bandwidth plus "
+                             "overheads); off (= 0, default): instant; a number between scales it")
     parser.add_argument("--drift-acceleration", type=_nonnegative, default=60.0,
                         help="simulated seconds per real second for drift (60: a minute is an hour)")
 
