@@ -173,7 +173,7 @@ class FakeProber:
 class FakeVna:
     """Returns the ideal structure under the fake prober; ``faults`` maps a
     (die, site) to a list of fault words consumed one per sweep ("lifted",
-    "error")."""
+    "error"; any other word is a good sweep). The contact pre-check is a sweep too."""
 
     def __init__(self, prober: FakeProber):
         self.prober = prober

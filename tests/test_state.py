@@ -113,7 +113,9 @@ def test_folding_any_prefix_equals_the_live_state_there(tmp_path_factory, action
 def test_an_accepted_fail_is_its_own_state(tmp_path):
     e, bench = start(tmp_path, sites=("ln-a",))
     calibrate(e)
-    bench.vna.faults[((1, 1), "ln-a")] = ["lifted"]
+    # the contact pre-check sweeps first and sees the tip down; the full sweep lands lifted
+    # (a FAIL with a sweep to keep: a failed pre-check has none, tests/test_precheck_engine.py)
+    bench.vna.faults[((1, 1), "ln-a")] = ["landed", "lifted"]
     out = e.measure()
     assert out.verdict.value == "fail"
     with pytest.raises(S.EngineError, match="reason is required to accept a FAIL landing on die 1,1 site ln-a"):
@@ -265,7 +267,7 @@ def test_an_accepted_fail_shows_in_manifest_report_history_map_and_verify(tmp_pa
 
     e, bench = start(tmp_path, sites=("ln-b",))
     calibrate(e)
-    bench.vna.faults[((1, 1), "ln-b")] = ["lifted"]
+    bench.vna.faults[((1, 1), "ln-b")] = ["landed", "lifted"]  # pre-check passes, the full sweep is lifted
     e.measure()
     e.accept("lifted tip kept: analyst wants the open-circuit sweep")
     for _ in range(2):
