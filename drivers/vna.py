@@ -152,7 +152,7 @@ class ScpiVna:
         self._ports = None
         self._apply(settings, None)
         self._set_data_format()
-        self._read_back(settings, power_limit_dbm, None)
+        self._read_back(settings, power_limit_dbm, set(changed_fields(None, settings)))
         self.settings = settings
         self._power_limit_dbm = power_limit_dbm
 
@@ -168,8 +168,8 @@ class ScpiVna:
         """A short contact pre-check sweep with ``settings`` (few points, wide IF
         bandwidth), then the configured settings restored and all read back.
 
-        Only the settings that differ are sent, each way; both are read back
-        before anything is swept with them. The plan's power limit of the last
+        Only the settings that differ are sent, each way, and read back (the
+        power too before the short sweep) before anything is swept with them. The plan's power limit of the last
         :meth:`configure` applies. On any error the VNA counts as unconfigured.
         """
         if ports not in (1, 2):
@@ -181,10 +181,11 @@ class ScpiVna:
         check_settings(settings)
         self.settings = None  # neither the plan's nor verified until read back
         self._apply(settings, base)
-        self._read_back(settings, limit, base)
+        # what changed, and the power always: a level changed at the instrument is caught here
+        self._read_back(settings, limit, set(changed_fields(base, settings)) | {"power_dbm"})
         net = self._acquire(settings, ports)
         self._apply(base, settings)
-        self._read_back(base, limit, None)
+        self._read_back(base, limit, set(changed_fields(settings, base)))  # restored exactly
         self.settings = base
         return net
 
@@ -236,17 +237,15 @@ class ScpiVna:
             op, key = values[name]
             link.command(d.command(op, **{key: getattr(settings, name)}))
 
-    def _read_back(self, settings: SweepSettings, power_limit_dbm: float, previous: SweepSettings | None) -> None:
-        """Ask the instrument for each setting that differs from ``previous`` (all
-        when None; the power always); raise SettingMismatch on a difference."""
+    def _read_back(self, settings: SweepSettings, power_limit_dbm: float, fields: set[str]) -> None:
+        """Ask the instrument for the SweepSettings ``fields`` (those the dialect can
+        query; one error-queue check for the batch); raise SettingMismatch on a difference."""
         d, link = self.dialect, self.link
-        fields = set(changed_fields(previous, settings)) | {"power_dbm"}
-        for st in READBACK:
-            if st.field not in fields or not d.has(st.operation):
-                continue  # query_ifbw_hz is optional
-            cmd = d.command(st.operation)
-            reply = link.query(cmd)
-            link.check_errors(cmd)
+        asked_for = [(st, d.command(st.operation)) for st in READBACK if st.field in fields and d.has(st.operation)]
+        replies = [(st, cmd, link.query(cmd)) for st, cmd in asked_for]  # query_ifbw_hz is optional
+        if replies:
+            link.check_errors(" / ".join(cmd for _, cmd in asked_for))
+        for st, cmd, reply in replies:
             got = parse_number(reply)
             if got is None:
                 raise ReplyError(f"{self.resource}: {cmd!r} answered {reply!r}, expected one number "

@@ -216,3 +216,16 @@ def test_a_session_resumed_after_a_failed_precheck_lands_the_site_again(rig, tmp
     assert not out.precheck and out.step.landing == 2
     assert [x.what for x in again.state.site(DIE, "cal-thru").landings] == ["precheck", "landing"]
     again.close(completed=False)
+
+
+def test_standards_are_sliced_onto_the_precheck_grid_not_interpolated():
+    from probelog.engine.precheck import on_grid
+
+    f = np.linspace(1e9, 110e9, 1001)
+    s = (np.arange(1001) + 1j).reshape(-1, 1, 1) * np.ones((1, 2, 2))
+    std = skrf.Network(frequency=skrf.Frequency.from_f(f, unit="Hz"), s=s, z0=50)
+    sub = np.linspace(1e9, 110e9, 11)  # every 100th point of the plan's grid
+    got = on_grid(std, sub)
+    np.testing.assert_array_equal(got.s[:, 0, 0], s[::100, 0, 0])
+    off = np.linspace(1.5e9, 100e9, 7)  # not on the grid: left for probelog.contact to interpolate
+    assert on_grid(std, off) is std

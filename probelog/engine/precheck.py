@@ -25,6 +25,7 @@ from __future__ import annotations
 
 from typing import Any
 
+import numpy as np
 import skrf
 
 from probelog import events as ev
@@ -34,6 +35,18 @@ from probelog.engine.planview import expectation
 from probelog.engine.store import die_dir
 from probelog.engine.types import LandingOutcome, Step, StepMeasured
 from probelog.verdicts import CheckResult, Verdict
+
+
+def on_grid(ntwk: skrf.Network, f_hz: Any) -> skrf.Network:
+    """``ntwk`` at exactly the frequencies ``f_hz`` (Hz) when each is one of its own
+    points (the pre-check's grid is a subset of the plan's, on which the cal's
+    standards were measured): a slice, no interpolation. Else ``ntwk`` as it is
+    (probelog.contact interpolates)."""
+    f = np.asarray(f_hz, dtype=float)
+    idx = np.clip(np.searchsorted(ntwk.f, f), 0, len(ntwk.f) - 1)
+    if not np.allclose(ntwk.f[idx], f, rtol=1e-9, atol=0.0):
+        return ntwk
+    return skrf.Network(frequency=skrf.Frequency.from_f(f, unit="Hz"), s=ntwk.s[idx], z0=ntwk.z0[idx])
 
 
 class PrecheckStep(EngineCore):
@@ -58,7 +71,8 @@ class PrecheckStep(EngineCore):
             return None  # this VNA has no pre-check (the operator saves each file)
         from probelog.contact import physics_contact
 
-        result = physics_contact(raw, standards[0], standards[1], site.kind, expectation(site), self.view.limits())
+        raw_open, raw_short = (on_grid(n, raw.f) for n in standards)
+        result = physics_contact(raw, raw_open, raw_short, site.kind, expectation(site), self.view.limits())
         if result.verdict is not Verdict.FAIL:
             return None
         return self._precheck_failed(step, site, raw, settings, result)
