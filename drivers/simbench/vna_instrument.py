@@ -50,6 +50,10 @@ class SimVna:
         self.slow_reply_s = slow_reply_s
         self.errors = ErrorQueue()
         self._rng = np.random.default_rng([seed, 404])
+        self._seed = seed
+        # one noise stream per stimulus: extra sweeps at other settings (a contact
+        # pre-check) leave the noise of the plan's sweeps as it was, seed for seed
+        self._noise: dict[tuple[float, float, int, float], np.random.Generator] = {}
         self._lock = threading.Lock()
         self._stopping = stopping or threading.Event()
         self._reset()
@@ -167,7 +171,12 @@ class SimVna:
         f = np.linspace(self.start, self.stop, self.points)
         tips = self.state.under_tips()
         kinds = tips.kinds if tips.in_contact else ()
-        s = self.sim.raw(tips.die, tips.site, kinds, f, self.clock.hours, self.ifbw, self.power, self._rng)
+        key = (self.start, self.stop, self.points, self.ifbw)
+        noise = self._noise.get(key)
+        if noise is None:  # the first stimulus swept draws from the bench's first stream
+            noise = self._noise[key] = self._rng if not self._noise else np.random.default_rng(
+                [self._seed, 404, len(self._noise)])
+        s = self.sim.raw(tips.die, tips.site, kinds, f, self.clock.hours, self.ifbw, self.power, noise)
         if self.ports == (1,):
             s = s[:, :1, :1]
         elif self.ports == (2,):
