@@ -490,10 +490,10 @@ class FakeEngine:
             self._std, self._last_std = {}, None
             self._set_phase(Phase.CALIBRATING, seq)
 
-    def close(self, completed: bool | None = None) -> None:
+    def close(self, completed: bool | None = None, cause: str | None = None) -> None:
         with self._lock:
             if completed is None:
                 completed = self._phase is Phase.DONE
-            seq = self.journal.append("session-closed", {"completed": completed, "summary": {}})
+            seq = self.journal.append("session-closed", {"completed": completed, "summary": {}, "cause": cause})
             self.journal.closed = True
             self._emit(SessionClosed(seq=seq, completed=completed))
