@@ -526,3 +526,42 @@ def test_fast_reference_scan_agrees_with_the_payload_walk(tmp_path):
     for line in data.splitlines():
         walked |= {p for p, _ in _refs(json.loads(line)["payload"])}
     assert _referenced_paths(data) == walked and len(walked) == 60
+
+
+# ------------------------------------------------------------------ reading on open
+
+
+def test_open_reads_the_same_events_as_a_full_parse(tmp_path):
+    """Journal.open takes seq, prev, ts and type from each line's canonical tail and
+    parses payloads only when asked; what it hands over equals json.loads of each line."""
+    folder = _session(tmp_path, n=8)
+    prev = ZERO_HASH
+    with Journal.open(folder) as j:
+        got = j.events()
+    for e, raw in zip(got, _lines(folder), strict=True):
+        rec = json.loads(raw)
+        assert (e.seq, e.ts, e.type, e.payload, e.prev) == (rec["seq"], rec["ts"], rec["type"], rec["payload"], prev)
+        prev = hashlib.sha256(raw).hexdigest()
+        assert e.hash == prev
+
+
+def test_a_rechained_middle_line_that_does_not_parse_is_refused_when_read(tmp_path):
+    """A middle line with a good tail but a broken payload, its chain recomputed by
+    hand, passes open (the chain vouches for bytes, not meaning) and is refused, with
+    its line, the moment its payload is read; `verify` parses every line."""
+    folder = _session(tmp_path, n=4)
+    lines = _lines(folder)
+    bad = lines[1].replace(b'"verdict":"pass"', b'"verdict":pass"', 1)
+    assert bad != lines[1]
+    fixed, prev = [], ZERO_HASH
+    for i, raw in enumerate([lines[0], bad, *lines[2:]], start=1):
+        if i > 1:
+            raw = raw[: raw.index(b',"prev":"') + 9] + prev.encode() + raw[raw.index(b',"prev":"') + 9 + 64:]
+        fixed.append(raw)
+        prev = hashlib.sha256(raw).hexdigest()
+    (folder / JOURNAL_NAME).write_bytes(b"\n".join(fixed) + b"\n")
+    with Journal.open(folder) as j:
+        events = j.events()
+        assert events[0].payload["wafer"] == "QF2611-W07"
+        with pytest.raises(JournalError, match="journal line 2: not valid JSON"):
+            _ = events[1].payload
