@@ -612,6 +612,8 @@ def window_quantities(figures: dict[str, dict[str, Any]]) -> list[CheckResult]:
 
 # ---------------------------------------------------------------- repeatability and drift
 
+PHASE_REF_HZ = 55e9  # phase limits widen as f / 55 GHz above it: 0.5 deg there is ~1 deg at 110 GHz
+
 
 def _compare(name, f_hz, s, f_other, s_other, floor_db, lims, against, unc=None) -> CheckResult:
     """|dS| (linear), |d dB| and |d phase| (degrees) per frequency between two
@@ -623,6 +625,11 @@ def _compare(name, f_hz, s, f_other, s_other, floor_db, lims, against, unc=None)
     if s.shape != s_other.shape or not np.allclose(f_hz, f_other, rtol=1e-9, atol=0.0):
         return _na(name, f"{against} was taken on another frequency grid or port count: not compared")
     db_w, db_f, deg_w, deg_f, mag_w, mag_f = lims
+    # A placement (or cable) length change dx moves a phase by beta*dx, which grows
+    # in proportion to frequency: the phase limits hold up to PHASE_REF_HZ and widen
+    # with f above it (trade numbers: +-0.2-0.5 deg at 40-67 GHz, ~1 deg at 110 GHz).
+    widen = np.maximum(1.0, f_hz / PHASE_REF_HZ)
+    deg_w, deg_f = deg_w * widen, deg_f * widen
     u = np.zeros(len(f_hz)) if unc is None else np.asarray(unc, float)
     floor = 10.0 ** (floor_db / 20.0)
     big = (np.abs(s) > floor) & (np.abs(s_other) > floor)
@@ -724,10 +731,12 @@ def run_checks(ntwk, kind: str, limits: Limits, expectation: dict | None = None,
         out.extend(window_quantities(figures))
     if previous is not None:
         rep = repeatability(f, s, previous.f, previous.s, limits, unc, previous_label)
-        if previous_other_die and rep.verdict is Verdict.FAIL:
+        if previous_other_die and rep.verdict in (Verdict.WARN, Verdict.FAIL):
             # the re-landing limits hold on one die; between dies the process spread adds
-            # to them, and the population check judges that: here a difference only warns
-            rep = replace(rep, verdict=Verdict.WARN,
+            # to them, and the population check judges that: a difference past the
+            # re-landing WARN limit is normal spread (a clean demo wafer had 17 % of its
+            # landings there), one past the FAIL limit only warns
+            rep = replace(rep, verdict=Verdict.WARN if rep.verdict is Verdict.FAIL else Verdict.PASS,
                           message=rep.message + " (another die: die-to-die differences are judged by the population)")
         out.append(rep)
     if history:

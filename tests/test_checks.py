@@ -280,6 +280,28 @@ def test_repeatability(f, med):
     check(repeatability(f.f, thru.s, other.f, medium(other).line(100e-6, "m").s, LIM), Verdict.NA, "repeatability")
 
 
+def test_repeatability_phase_allowance_grows_with_frequency(f, med):
+    """A placement error dx turns a phase by beta*dx, in proportion to f, so the
+    phase limit (0.5 deg warn up to 55 GHz) widens as f / 55 GHz above it: ~1 deg at
+    110 GHz (trade numbers, common practice, no source: +-0.2-0.5 deg at 40-67 GHz,
+    ~1 deg at 110 GHz)."""
+    from probelog.checks import PHASE_REF_HZ
+
+    thru = med.line(100e-6, "m")
+    f_hz = f.f
+    moved = thru.s.copy()
+    # a length error: 0.005 deg per GHz, 0.55 deg at 110 GHz (|dS| 0.0096, under 0.01)
+    moved[:, 1, 0] *= np.exp(-1j * np.radians(0.005 * f_hz / 1e9))
+    moved[:, 0, 1] = moved[:, 1, 0]
+    check(repeatability(f_hz, moved, f_hz, thru.s, LIM), Verdict.PASS, "repeatability")
+    # 0.55 deg at every frequency (not a length error) is over 0.5 deg below 55 GHz
+    flat = thru.s.copy()
+    flat[:, 1, 0] *= np.exp(-1j * np.radians(0.55))
+    r = repeatability(f_hz, flat, f_hz, thru.s, LIM)
+    check(r, Verdict.WARN, "repeatability")
+    assert r.at_hz <= PHASE_REF_HZ
+
+
 def test_drift(f, med):
     ref = med.line(100e-6, "m").s
     moved = ref.copy()
@@ -355,3 +377,28 @@ def test_closed_form_singular_value_matches_numpy_svd():
     assert largest_singular_value(s)[0] == pytest.approx(1.2, rel=1e-12)
     one = s[:, :1, :1]
     np.testing.assert_allclose(largest_singular_value(one), np.abs(one[:, 0, 0]), rtol=1e-15)
+
+
+def test_repeatability_against_another_die_leaves_the_spread_to_the_population(f, med):
+    """Against the same die the re-landing limits apply as they are; against an
+    accepted landing on another die, a difference in the re-landing WARN band
+    (0.05-0.15 dB, Limits defaults) is process spread and passes, one past the
+    FAIL band only warns (the population check judges die-to-die differences)."""
+    from probelog.checks import run_checks
+
+    line = med.line(100e-6, "m")
+    exp = {"length_um": 100.0}
+
+    def moved(db: float) -> skrf.Network:
+        n = line.copy()
+        n.s[:, 1, 0] *= 10 ** (-db / 20)
+        n.s[:, 0, 1] = n.s[:, 1, 0]
+        return n
+
+    def rep(db: float, other_die: bool) -> Verdict:
+        out = run_checks(moved(db), "thru", LIM, exp, previous=line, previous_other_die=other_die)
+        return next(c for c in out if c.name == "repeatability").verdict
+
+    assert (rep(0.1, False), rep(0.1, True)) == (Verdict.WARN, Verdict.PASS)
+    assert (rep(0.3, False), rep(0.3, True)) == (Verdict.FAIL, Verdict.WARN)
+    assert rep(0.01, True) is Verdict.PASS
