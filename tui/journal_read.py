@@ -35,6 +35,18 @@ def as_dict(event: Any) -> dict:
             "payload": payload if isinstance(payload, dict) else {}}
 
 
+def type_of(event: Any) -> str:
+    """The event's type, without converting a typed event's payload."""
+    return str(event.get("type", "")) if isinstance(event, dict) else str(event.type)
+
+
+def field(event: Any, name: str) -> Any:
+    """One payload field, without converting a typed event's payload."""
+    if isinstance(event, dict):
+        return (event.get("payload") or {}).get(name)
+    return getattr(event.data, name, None)
+
+
 def _die(p: dict) -> Die | None:
     d = p.get("die")
     return (int(d[0]), int(d[1])) if isinstance(d, (list, tuple)) and len(d) == 2 else None
@@ -115,17 +127,20 @@ def kept_despite_fail(events: Iterable[dict]) -> dict[Die, list[str]]:
     """Dies with a landing accepted although its verdict was FAIL: die -> sites."""
     verdicts: dict[tuple, str] = {}
     out: dict[Die, list[str]] = {}
-    for ev in map(as_dict, events):
-        p = ev.get("payload") or {}
-        die = _die(p)
+    for ev in events:
+        kind = type_of(ev)
+        if kind not in ("landing", "decision"):
+            continue
+        die = _die({"die": field(ev, "die")})
         if die is None:
             continue
-        key = (die, p.get("site"), p.get("landing"))
-        if ev.get("type") == "landing":
-            verdicts[key] = str(p.get("verdict"))
-        elif ev.get("type") == "decision" and (p.get("action") == "accept-despite-fail" or (
-                p.get("action") == "accept" and verdicts.get(key) == "fail")):
-            out.setdefault(die, []).append(str(p.get("site")))
+        key = (die, field(ev, "site"), field(ev, "landing"))
+        if kind == "landing":
+            v = field(ev, "verdict")
+            verdicts[key] = str(getattr(v, "value", v))
+        elif field(ev, "action") == "accept-despite-fail" or (
+                field(ev, "action") == "accept" and verdicts.get(key) == "fail"):
+            out.setdefault(die, []).append(str(field(ev, "site")))
     return out
 
 

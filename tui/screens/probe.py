@@ -18,7 +18,7 @@ from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.widgets import Header
 
-from probelog.tui.journal_read import as_dict, kept_despite_fail
+from probelog.tui.journal_read import kept_despite_fail, type_of
 from probelog.tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from probelog.tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
 from probelog.tui.screens.dialogs import Confirm
@@ -102,8 +102,9 @@ class Probe(BenchScreen):
         self._compact: bool | None = None
         self._keys_state: tuple | None = None
         self._shown: Any = None  # the LandingOutcome on the board
-        self._fail_shown = False
         self._error = False
+        self._map_key: tuple | None = None
+        self._decisions_seen = 0
         super().on_mount()
         last = self.engine.last_outcome
         if last is not None:  # resumed (or came back) while a landing awaits a decision
@@ -355,16 +356,25 @@ class Probe(BenchScreen):
             self.refresh_bindings()
 
     def _refresh_map(self) -> None:
+        """Redraw the small map when what it shows changed: the decided count, the
+        die under the probes or the journal's decisions. It runs on every worker
+        state change, alongside a landing in progress, so it must stay cheap."""
         engine = self.engine
         last = engine.last_outcome
         current = last.step.die if last is not None else (engine.next_step.die if engine.next_step else None)
         events_ = self.app.journal_events
+        key = (engine.progress, current, self._decisions_seen)
+        if key == self._map_key:
+            return
+        self._map_key = key
         self.query_one("#map", DieMap).update_state(engine.wafer_status, current, cal_die=cal_die_of(events_),
                                                     flagged=set(kept_despite_fail(events_)))
 
     def journal_grew(self, events_: list[dict]) -> None:
         super().journal_grew(events_)
-        if any(as_dict(e).get("type") in ("decision", "die-skipped") for e in events_):
+        decided = sum(1 for e in events_ if type_of(e) in ("decision", "die-skipped"))
+        if decided:
+            self._decisions_seen += decided
             self._refresh_map()
 
     def _where(self, doing: str | None = None) -> None:

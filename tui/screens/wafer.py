@@ -21,7 +21,7 @@ from textual.widgets import Static
 from probelog import state as st
 from probelog import state_views as sv
 from probelog.state import SessionState
-from probelog.tui.journal_read import (MetricChoice, as_dict, fold_metrics, kept_despite_fail, metric_choices,
+from probelog.tui.journal_read import (MetricChoice, field, fold_metrics, type_of, kept_despite_fail, metric_choices,
                               metric_frequencies, metric_values)
 from probelog.tui.widgets.bench_footer import BenchFooter
 from probelog.tui.widgets.die_map import STATUS_WORD, DieMap, legend
@@ -54,9 +54,9 @@ def history_panel(state: SessionState, die: tuple[int, int]) -> list[str]:
 
 def cal_die_of(events: list[dict]) -> tuple[int, int] | None:
     """The die the last calibration's standards were landed on."""
-    for ev in map(as_dict, reversed(events)):
-        if ev.get("type") == "cal-standard":
-            d = (ev.get("payload") or {}).get("die")
+    for ev in reversed(events):
+        if type_of(ev) == "cal-standard":
+            d = field(ev, "die")
             if isinstance(d, (list, tuple)) and len(d) == 2:
                 return int(d[0]), int(d[1])
     return None

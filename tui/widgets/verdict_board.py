@@ -201,7 +201,9 @@ class VerdictBoard(Vertical):
         # one restyle of the board for the change of look, not one per class touched
         for cls in _CLASSES:
             self.set_class(cls == look, cls, update=False)
-        self.update_node_styles(animate=False)
+        # only the board and the big word change look: restyling the scrolling
+        # table under them too would cost a few ms on every verdict
+        self.app.stylesheet.update_nodes([self, big], animate=False)
         if self.mode == "error":
             big.update("\n".join(render_big("✖ ERROR")), layout=False)
             self.border_title = "✖ INSTRUMENT ERROR: nothing recorded for this landing"
