@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 import skrf
+from numpy.typing import NDArray
 
 from probelog.drivers.simbench.chip import CHIP_FILE, load_chip
 from probelog.drivers.simbench.errorbox import drifted
@@ -55,7 +56,7 @@ class SimBench:
     """
 
     def __init__(self, seed: int = 0, sweep_time_scale: float | str = 0.0, fault_rate: float = 0.0,
-                 faults: list[Fault | str] | tuple = (), drift_acceleration: float = 1.0,
+                 faults: list[Fault | str] | tuple[Fault | str, ...] = (), drift_acceleration: float = 1.0,
                  vna_port: int = 0, prober_port: int = 0, slow_reply_s: float = 12.0,
                  variation: bool = True, chip_file: Path | str = CHIP_FILE) -> None:
         self.chip = load_chip(chip_file)
@@ -107,7 +108,7 @@ class SimBench:
         self.start()
         return self
 
-    def __exit__(self, *exc) -> None:
+    def __exit__(self, *exc: object) -> None:
         self.stop()
 
     # ---- control and inspection ------------------------------------------------------------
@@ -148,7 +149,10 @@ class SimBench:
         f = np.asarray(f, float)
         em = drifted(self.sim.error_model(f), *drift_factors(f, self.clock.hours, self.seed))
         freq = skrf.Frequency.from_f(f, unit="Hz")
-        net = lambda s: skrf.Network(frequency=freq, s=s)  # noqa: E731
+
+        def net(s: NDArray[np.complex128]) -> skrf.Network:
+            return skrf.Network(frequency=freq, s=s)
+
         return ErrorBoxes(net(em.x), net(em.y), net(em.gamma_f.reshape(-1, 1, 1)), net(em.gamma_r.reshape(-1, 1, 1)))
 
     def raw_network(self, die: tuple[int, int], site: str | None, f: np.ndarray, kinds: tuple[str, ...] = (),
