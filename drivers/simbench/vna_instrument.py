@@ -12,6 +12,7 @@ import threading
 import time
 
 import numpy as np
+from numpy.typing import NDArray
 
 from probelog.drivers.simbench.impairments import SimClock
 from probelog.drivers.simbench.scpi import CommandTable, ErrorQueue, ScpiError, integer, number
@@ -25,6 +26,8 @@ POINTS_MAX = 20001
 IFBW_MIN, IFBW_MAX = 1.0, 1e6  # Hz
 POWER_MIN, POWER_MAX = -60.0, 5.0  # dBm at the test port
 IDN = "probelog,SimVNA-110,PLX7-SIM-0001,0.1.0"
+
+Stimulus = tuple[float, float, int, float, tuple[int, ...]]  # start Hz, stop Hz, points, IFBW Hz, ports
 
 
 def ieee_block(payload: bytes) -> bytes:
@@ -46,7 +49,7 @@ class SimVna:
         self.time_model = time_model or SweepTimeModel()
         self.modelled_s = 0.0
         self.sweeps = 0
-        self._armed: tuple | None = None  # stimulus of the last sweep
+        self._armed: Stimulus | None = None  # stimulus of the last sweep
         self.slow_reply_s = slow_reply_s
         self.errors = ErrorQueue()
         self._rng = np.random.default_rng([seed, 404])
@@ -89,36 +92,37 @@ class SimVna:
     # ---- state ---------------------------------------------------------------------------
     def _reset(self) -> None:
         self.start, self.stop, self.points = 10e6, 110e9, 201
-        self.ifbw, self.power, self.ports = 1e3, -10.0, (1, 2)
+        self.ifbw, self.power = 1e3, -10.0
+        self.ports: tuple[int, ...] = (1, 2)
         self.binary, self.little = False, False
-        self._data: tuple[np.ndarray, np.ndarray] | None = None
+        self._data: tuple[NDArray[np.float64], NDArray[np.complex128]] | None = None
         self._done_at = 0.0
 
-    def _cmd_rst(self, args):
+    def _cmd_rst(self, args: list[str]) -> None:
         self._reset()
 
     def _set(self, name: str, value: float) -> None:
         setattr(self, name, value)
 
-    def _freq(self, args, what) -> float:
+    def _freq(self, args: list[str], what: str) -> float:
         v = number(args, what)
         if not F_MIN <= v <= F_MAX:
             raise ScpiError(-222, f"{what} {v:.6g} Hz outside {F_MIN:.6g}..{F_MAX:.6g} Hz")
         return v
 
-    def _cmd_points(self, args) -> None:
+    def _cmd_points(self, args: list[str]) -> None:
         n = integer(args, "points")
         if not 2 <= n <= POINTS_MAX:
             raise ScpiError(-222, f"points {n} outside 2..{POINTS_MAX}")
         self.points = n
 
-    def _cmd_ifbw(self, args) -> None:
+    def _cmd_ifbw(self, args: list[str]) -> None:
         v = number(args, "IF bandwidth")
         if not IFBW_MIN <= v <= IFBW_MAX:
             raise ScpiError(-222, f"IF bandwidth {v:.6g} Hz outside {IFBW_MIN:g}..{IFBW_MAX:g} Hz")
         self.ifbw = v
 
-    def _cmd_power(self, args) -> None:
+    def _cmd_power(self, args: list[str]) -> None:
         v = number(args, "source power")
         if v > POWER_MAX:
             raise ScpiError(-222, f"source power {v:.4g} dBm above the instrument maximum {POWER_MAX:+.4g} dBm")
@@ -126,7 +130,7 @@ class SimVna:
             raise ScpiError(-222, f"source power {v:.4g} dBm below the minimum {POWER_MIN:.4g} dBm")
         self.power = v
 
-    def _cmd_ports(self, args) -> None:
+    def _cmd_ports(self, args: list[str]) -> None:
         try:
             ports = tuple(int(a) for a in args)
         except ValueError:
@@ -135,7 +139,7 @@ class SimVna:
             raise ScpiError(-224, f"ports {','.join(args)!r}: expected 1, 2 or 1,2")
         self.ports = ports
 
-    def _cmd_format(self, args) -> None:
+    def _cmd_format(self, args: list[str]) -> None:
         word = ",".join(a.upper() for a in args)
         if word in ("ASC", "ASCII", "ASC,0", "ASCII,0"):
             self.binary = False
@@ -144,7 +148,7 @@ class SimVna:
         else:
             raise ScpiError(-224, f"format {','.join(args)!r}: this instrument serves ASCii or REAL,64")
 
-    def _cmd_border(self, args) -> None:
+    def _cmd_border(self, args: list[str]) -> None:
         word = args[0].upper() if len(args) == 1 else ""
         if word in ("SWAP", "SWAPPED"):
             self.little = True
@@ -154,7 +158,7 @@ class SimVna:
             raise ScpiError(-224, f"byte order {','.join(args)!r}: NORMal or SWAPped")
 
     # ---- sweeping --------------------------------------------------------------------------
-    def _stimulus(self) -> tuple:
+    def _stimulus(self) -> Stimulus:
         return (self.start, self.stop, self.points, self.ifbw, self.ports)
 
     def _modelled_time(self) -> float:
@@ -165,7 +169,7 @@ class SimVna:
         """Seconds the next sweep really holds ``*OPC?``: the model times the scale."""
         return self.sweep_time_scale * self._modelled_time()
 
-    def _cmd_init(self, args) -> None:
+    def _cmd_init(self, args: list[str]) -> None:
         if self.start >= self.stop:
             raise ScpiError(-221, f"start {self.start:.6g} Hz is not below stop {self.stop:.6g} Hz")
         f = np.linspace(self.start, self.stop, self.points)
@@ -193,16 +197,16 @@ class SimVna:
         if left > 0:
             self._stopping.wait(left)
 
-    def _opc(self, args) -> str:
+    def _opc(self, args: list[str]) -> str:
         self._wait_sweep()
         return "1"
 
-    def _encode(self, values: np.ndarray) -> bytes:
+    def _encode(self, values: NDArray[np.float64]) -> bytes:
         if self.binary:
             return ieee_block(values.astype("<f8" if self.little else ">f8").tobytes())
         return ",".join(f"{v:.15g}" for v in values).encode("ascii")
 
-    def _cmd_data(self, args) -> Reply:
+    def _cmd_data(self, args: list[str]) -> Reply:
         what = args[0].upper() if len(args) == 1 else ""
         if what not in ("SPAR", "SPARAMETERS", "STIM", "STIMULUS", "SWIT", "SWITCH"):
             raise ScpiError(-224, f"TRACe:DATA? {','.join(args)!r}: SPARameters, STIMulus or SWITch")
