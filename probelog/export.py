@@ -21,7 +21,7 @@ import shutil
 import tempfile
 from contextlib import nullcontext
 from pathlib import Path
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Any, Callable
 
 import numpy as np
 
@@ -38,6 +38,12 @@ from probelog.manifest import (
     readme_text,
     write_manifest_csv,
 )
+
+if TYPE_CHECKING:  # annotations only: skrf and rich stay lazy imports
+    import skrf
+    from rich.progress import Progress
+
+    from probelog.manifest import ChainStatus, Journal
 
 LINE_KINDS = {"line", "thru"}
 
@@ -99,7 +105,7 @@ def check_files(index: SessionIndex, hashes: dict[str, str]) -> list[str]:
     return problems
 
 
-def _read_network(path: Path):
+def _read_network(path: Path) -> skrf.Network | None:
     import skrf
 
     try:
@@ -177,7 +183,7 @@ class DamagedSessionError(BundleError):
         self.problems = problems
 
 
-def _damage(chain, integrity: list[str]) -> list[str]:
+def _damage(chain: ChainStatus, integrity: list[str]) -> list[str]:
     """One sentence per reason the session is not what the bench wrote."""
     return ([f"journal chain: {chain.problem or 'broken'}"] if not chain.ok else []) + list(integrity)
 
@@ -236,7 +242,7 @@ def export_bundle(session_dir: Path | str, out_dir: Path | str | None = None, pr
     return out
 
 
-def _write_bundle(session_dir: Path, journal, out: Path, progress: bool, metric: str | None) -> list[str]:
+def _write_bundle(session_dir: Path, journal: Journal, out: Path, progress: bool, metric: str | None) -> list[str]:
     """Fill the (new, empty) folder ``out``; returns the session's damage (see _damage)."""
     from probelog.report import ReportInputs, build_report, numeric_columns
 
@@ -276,7 +282,7 @@ def _write_bundle(session_dir: Path, journal, out: Path, progress: bool, metric:
     return _damage(chain, integrity)
 
 
-def _progress(enabled: bool):
+def _progress(enabled: bool) -> Progress | None:
     if not enabled:
         return None
     from rich.console import Console
