@@ -39,6 +39,7 @@ from typing import Any, Collection, Mapping, Sequence
 
 import numpy as np
 import skrf
+from numpy.typing import NDArray
 from skrf.calibration import LRRM, SOLT, EightTerm, NISTMultilineTRL, TwelveTerm
 
 from probelog.cal_agreement import Agreement, agreement
@@ -132,7 +133,7 @@ def _gather(method: str, measured: Mapping[str, skrf.Network], kit: CalKit) -> d
 
 
 def _skrf_cal(method: str, std: dict[str, skrf.Network], kit: CalKit,
-              switch_terms: Sequence[skrf.Network] | None):
+              switch_terms: Sequence[skrf.Network] | None) -> TwelveTerm | EightTerm:
     freq = std["thru"].frequency
     ideal = ideals(kit, freq)
     z0 = kit.reference_impedance_ohm
@@ -359,27 +360,30 @@ class VerifyLimits:
     thru_delay_tol_s: float = 0.3e-12
 
 
-def _reflections(ntwk: skrf.Network) -> np.ndarray:
+def _reflections(ntwk: skrf.Network) -> NDArray[np.complex128]:
     """Reflection traces, shape (n_freq, n_ports): S11 (and S22 of a pair)."""
-    return np.stack([ntwk.s[:, i, i] for i in range(ntwk.nports)], axis=1)
+    traces: NDArray[np.complex128] = np.stack([ntwk.s[:, i, i] for i in range(ntwk.nports)], axis=1)  # skrf is untyped
+    return traces
 
 
-def ccw_excursion_deg(gamma: np.ndarray) -> np.ndarray:
+def ccw_excursion_deg(gamma: NDArray[np.complex128]) -> NDArray[np.float64]:
     """Largest rise (deg) of the unwrapped phase over any span, per column.
 
     A passive, nearly lossless one-port turns clockwise (Foster, Bell Syst. Tech. J.
     3, 1924): its phase only falls, so any rise is a counter-clockwise excursion.
     """
     ph = np.degrees(np.unwrap(np.angle(gamma), axis=0))
-    return np.max(ph - np.minimum.accumulate(ph, axis=0), axis=0)
+    rise: NDArray[np.float64] = np.max(ph - np.minimum.accumulate(ph, axis=0), axis=0)
+    return rise
 
 
-def group_delay_fit_s(s: np.ndarray, f_hz: np.ndarray) -> np.ndarray:
+def group_delay_fit_s(s: NDArray[np.complex128], f_hz: NDArray[np.float64]) -> NDArray[np.float64]:
     """Least-squares group delay (s) of each column: -d(phase)/d(omega)."""
     ph = np.unwrap(np.angle(s), axis=0)
     w = 2 * np.pi * f_hz
     wc = w - w.mean()
-    return -(wc @ (ph - ph.mean(axis=0))) / (wc @ wc)
+    delay: NDArray[np.float64] = -(wc @ (ph - ph.mean(axis=0))) / (wc @ wc)
+    return delay
 
 
 def _result(name: str, ok: bool, value: float, limit: float, at_hz: float | None,
@@ -451,12 +455,12 @@ def verify(open_stub: skrf.Network, thru: skrf.Network | None, kit: CalKit,
             thru.f[i], "dB", f"thru match at worst {m[i, p]:.3g} dB",
             f"thru |S{p + 1}{p + 1}| is {m[i, p]:.3g} dB at {_ghz(thru.f[i])}: "
             f"the corrected thru is not matched; check the load and the thru landing"))
-        tau = float(group_delay_fit_s(thru.s[:, 1, 0][:, None], thru.f)[0])
-        err = abs(tau - kit.thru_delay_s)
+        thru_tau = float(group_delay_fit_s(thru.s[:, 1, 0][:, None], thru.f)[0])
+        err = abs(thru_tau - kit.thru_delay_s)
         out.append(_result(
             "ver-thru-delay", err <= lim.thru_delay_tol_s, err * 1e12, lim.thru_delay_tol_s * 1e12,
-            None, "ps", f"thru delay {tau * 1e12:.4g} ps matches the kit "
+            None, "ps", f"thru delay {thru_tau * 1e12:.4g} ps matches the kit "
             f"({kit.thru_delay_s * 1e12:.4g} ps)",
-            f"thru delay is {tau * 1e12:.4g} ps, the kit says {kit.thru_delay_s * 1e12:.4g} ps: "
+            f"thru delay is {thru_tau * 1e12:.4g} ps, the kit says {kit.thru_delay_s * 1e12:.4g} ps: "
             f"check thru_length_um / thru_delay_s and the probe placement"))
     return out
