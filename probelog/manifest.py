@@ -149,7 +149,7 @@ def chain_status(session_dir: Path, journal: Journal) -> ChainStatus:
 # ---------------------------------------------------------------- the plan
 
 
-def plan_sites(plan_text: str | None) -> dict[str, dict]:
+def plan_sites(plan_text: str | None) -> dict[str, dict[str, Any]]:  # Any: parsed TOML
     """Site tables of the plan TOML by name: any table with ``name`` and ``kind``
     (geometry keys: line_type, metal, width_um, gap_um, length_um)."""
     if not plan_text:
@@ -158,7 +158,7 @@ def plan_sites(plan_text: str | None) -> dict[str, dict]:
         doc = tomllib.loads(plan_text)
     except tomllib.TOMLDecodeError as exc:
         raise SessionFormatError(f"session-opened plan_text: not valid TOML ({exc})") from None
-    found: dict[str, dict] = {}
+    found: dict[str, dict[str, Any]] = {}
 
     def visit(node: Any) -> None:
         if isinstance(node, dict):
@@ -293,8 +293,8 @@ class SessionIndex:
     kind, and the manifest rows (one per kept sweep)."""
 
     opened: ev.SessionOpened
-    sites: dict[str, dict]
-    rows: list[dict]
+    sites: dict[str, dict[str, Any]]
+    rows: list[dict[str, Any]]  # Any: manifest cells (numbers, text, None)
     landings: list[ev.Event]
     decisions: list[ev.Event]
     notes: list[ev.Event]
@@ -386,7 +386,7 @@ def index_session(journal: Journal) -> SessionIndex:
 _METRIC_ORDER = ("z0", "alpha", "loss", "eps", "q", "beta", "gamma", "r_", "l_", "g_", "c_")
 
 
-def metric_sort_key(col: str) -> tuple:
+def metric_sort_key(col: str) -> tuple[int, str, float]:
     """Z0, loss, eps_eff and Q first (what analysts read), then the rest; each
     metric's frequencies in ascending order."""
     base, _, freq = col.partition("@")
@@ -442,7 +442,7 @@ _INT_COLS = {"seq", "die_col", "die_row", "landing", "retries", "files_ok"}
 _TEXT_COLS = {"time", "site", "kind", "line_type", "metal", "cal_id", "verdict", "decision", "decision_reason", "notes"}
 
 
-def read_manifest_csv(path: Path) -> list[dict]:
+def read_manifest_csv(path: Path) -> list[dict[str, Any]]:
     """Read a bundle's manifest back with numbers as numbers and empty cells as None."""
     rows = []
     with open(path, newline="", encoding="utf-8") as fh:
