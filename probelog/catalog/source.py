@@ -13,7 +13,6 @@ pass, warn, accepted-fail, given-up, skipped, or open (landed, not decided yet).
 
 from __future__ import annotations
 
-import json
 import tomllib
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
@@ -85,12 +84,13 @@ def _ref(v: Any) -> tuple[str, str]:
 def _damaged_record(path: Path, problem: str) -> SessionRecord:
     """A session whose journal cannot be read: one row that says so."""
     sid, opened = path.name, dict[str, Any]()
-    try:
+    try:  # salvage the session's own description from its first line, if it reads
         with open(path / JOURNAL_NAME, "rb") as fh:
-            first = json.loads(fh.readline())
-        opened = first.get("payload") or {}
-        sid = str(opened.get("session_id") or sid)
-    except (OSError, ValueError, AttributeError):
+            first = ev.Decoder(str(path / JOURNAL_NAME)).line(fh.readline().rstrip(b"\n"))
+        if isinstance(first.data, ev.SessionOpened):
+            opened = first.data
+            sid = str(first.data.session_id or sid)
+    except (OSError, ValueError):  # EventError is a ValueError
         pass
     row = _session_row(path, sid, opened, [], problem)
     row["status"] = "damaged"
