@@ -17,7 +17,7 @@ from __future__ import annotations
 import sys
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, TextIO
+from typing import TYPE_CHECKING, Callable, TextIO
 
 from probelog.session import (
     Engine,
@@ -28,6 +28,14 @@ from probelog.session import (
     StepKind,
 )
 from probelog.verdicts import Verdict
+
+if TYPE_CHECKING:  # annotations only: rich stays a lazy import
+    from rich.console import Console
+    from rich.progress import Progress, TaskID
+
+    from probelog.engine.types import LandingOutcome, Step
+
+StepKey = tuple[StepKind, tuple[int, int], str]  # (kind, die, site) of a step
 
 
 @dataclass
@@ -53,13 +61,13 @@ class Summary:
 class _Out:
     """Lines to a rich Console (with a progress bar on a terminal) or a stream."""
 
-    def __init__(self, out):
+    def __init__(self, out: TextIO | Console | None) -> None:
         from rich.console import Console
 
         self.console = out if isinstance(out, Console) else Console(
             file=out or sys.stdout, highlight=False, soft_wrap=True)
-        self.progress = None
-        self.task = None
+        self.progress: Progress | None = None
+        self.task: TaskID | None = None
 
     def start(self, total: int, done: int) -> None:
         if not self.console.is_terminal:
@@ -72,7 +80,7 @@ class _Out:
         self.progress.start()
 
     def advance(self, done: int) -> None:
-        if self.progress is not None:
+        if self.progress is not None and self.task is not None:  # both set by start()
             self.progress.update(self.task, completed=done)
 
     def line(self, text: str) -> None:
@@ -85,7 +93,7 @@ class _Out:
             self.progress.stop()
 
 
-def _fmt_checks(outcome) -> str:
+def _fmt_checks(outcome: LandingOutcome) -> str:
     bad = [c for c in outcome.checks if c.verdict in (Verdict.FAIL, Verdict.WARN)]
     return "; ".join(f"{c.name} {c.verdict.value}: {c.message}" for c in bad[:2])
 
@@ -117,11 +125,14 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
     printer.line(f"session {engine.session_id}: {total - done} site landings to go")
     # failed landings / instrument errors per step (kind, die, site): a drift
     # re-measure in between does not restart a site's count
-    fails: dict[tuple, int] = {}
-    key: tuple = ()
+    fails: dict[StepKey | tuple[()] | None, int] = {}
+    key: StepKey | tuple[()] | None = ()
     cal_redos = 0  # calibrations redone in a row because their verification failed
 
-    def retry(failed: bool, again) -> bool:
+    def reland_after(o: LandingOutcome) -> Callable[[], object]:
+        return lambda: engine.reland(f"headless: {_fmt_checks(o)}")
+
+    def retry(failed: bool, again: Callable[[], object]) -> bool:
         """Call ``again`` (re-land) while the step keeps failing, up to ``retries``
         times; False (and the count reset) once it passed or the tries are used up."""
         if failed and fails.get(key, 0) < retries:
@@ -179,7 +190,7 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
             failed = outcome.verdict is Verdict.FAIL
             if step.kind is StepKind.CAL_STANDARD:
                 line = f"cal {step.standard:<8} {_where(step)} L{step.landing} {outcome.verdict.value}"
-                if retry(failed, lambda o=outcome: engine.reland(f"headless: {_fmt_checks(o)}")):
+                if retry(failed, reland_after(outcome)):
                     printer.line(f"{line} -> re-land ({_fmt_checks(outcome)})")
                 else:
                     printer.line(f"{line} {_fmt_checks(outcome)}".rstrip())
@@ -204,7 +215,7 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
                 engine.accept()
                 fails.pop(key, None)
                 printer.line(line)
-            elif retry(failed, lambda o=outcome: engine.reland(f"headless: {_fmt_checks(o)}")):
+            elif retry(failed, reland_after(outcome)):
                 printer.line(f"{line} -> re-land ({_fmt_checks(outcome)})")
             else:
                 engine.give_up(f"headless: still failing after {retries} re-landings: {_fmt_checks(outcome)}")
@@ -227,5 +238,5 @@ def run_headless(engine: Engine, retries: int = 2, out: TextIO | None = None,
     return summary
 
 
-def _where(step) -> str:
+def _where(step: Step) -> str:
     return f"die {step.die[0]},{step.die[1]} {step.site}"
