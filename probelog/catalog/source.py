@@ -83,7 +83,8 @@ def _ref(v: Any) -> tuple[str, str]:
 
 def _damaged_record(path: Path, problem: str) -> SessionRecord:
     """A session whose journal cannot be read: one row that says so."""
-    sid, opened = path.name, dict[str, Any]()
+    sid = path.name
+    opened: dict[str, Any] | ev.SessionOpened = {}
     try:  # salvage the session's own description from its first line, if it reads
         with open(path / JOURNAL_NAME, "rb") as fh:
             first = ev.Decoder(str(path / JOURNAL_NAME)).line(fh.readline().rstrip(b"\n"))
