@@ -135,3 +135,22 @@ def test_drift_failure_advises_recalibration(tmp_path):
     cal2 = calibrate(engine)
     assert cal2.cal_id == "cal2" and engine.active_cal.cal_id == "cal2"
     assert engine.next_step.kind is S.StepKind.DRIFT  # a new reference for the new cal
+
+
+def test_a_note_goes_to_the_site_the_operator_names_else_where_the_engine_stands(tmp_path):
+    """With the probes up after a decision the next site is ln-b, but the operator
+    is still looking at ln-a's landing: the note names ln-a. Without a place, the
+    note goes to the landing waiting for a decision, else the next site."""
+    engine, _, journal, _ = make(tmp_path)
+    calibrate(engine)
+    out = engine.measure()
+    engine.skip("pad damaged")
+    assert engine.next_step.site == "ln-b"
+    engine.note("scratch across the pad", out.step.die, out.step.site)
+    engine.note("about the next one")
+    with pytest.raises(S.EngineError, match="no site named"):
+        engine.note("nowhere", out.step.die, "no-such-site")
+    notes = [e.payload for e in journal.events() if e.type == "note"]
+    assert [(n["site"], n["text"]) for n in notes] == [(out.step.site, "scratch across the pad"),
+                                                       ("ln-b", "about the next one")]
+    assert notes[0]["die"] == list(out.step.die)

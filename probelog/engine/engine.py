@@ -268,12 +268,19 @@ class Engine(Policy):
             self._pending_cal = None
             self._announce_phase(before, e.seq)
 
-    def note(self, text: str) -> None:
+    def note(self, text: str, die: tuple[int, int] | None = None, site: str | None = None) -> None:
+        """Journal a note at (die, site): the ones given (the landing the operator is
+        looking at, already decided or not), else the landing waiting for a
+        decision, else the next site."""
         from probelog.engine.core import need_reason
 
         with self._busy():
             text = need_reason(text, "add a note")
-            pos = self._position()
+            if die is not None and site is not None:
+                self.view.site(site)  # EngineError for a site the plan does not have
+                pos: tuple[tuple[int, int], str] | None = ((int(die[0]), int(die[1])), site)
+            else:
+                pos = self._position()
             e = self._append(ev.Note(text=text, die=pos[0] if pos else None, site=pos[1] if pos else None))
             self._emit(NoteAdded(seq=e.seq, text=text))
 

@@ -457,11 +457,12 @@ class FakeEngine:
     def give_up(self, reason: str) -> None:
         self._decide("give-up", reason)
 
-    def note(self, text: str) -> None:
+    def note(self, text: str, die: tuple[int, int] | None = None, site: str | None = None) -> None:
         with self._lock:
             pos = self._last.step if self._last else self.next_step
-            seq = self.journal.append("note", {"text": text, "die": list(pos.die) if pos else None,
-                                               "site": pos.site if pos else None})
+            where = (list(die), site) if die is not None and site is not None else (
+                (list(pos.die), pos.site) if pos else (None, None))
+            seq = self.journal.append("note", {"text": text, "die": where[0], "site": where[1]})
             self._emit(NoteAdded(seq=seq, text=text))
 
     def goto(self, die: tuple[int, int], reason: str = "") -> None:

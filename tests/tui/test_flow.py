@@ -145,7 +145,9 @@ def test_whole_flow_then_resume(tmp_path):
         ((1, 0), "line-b", 1, "skip", "structure damaged"),
     ]
     notes = [e["payload"] for e in events if e["type"] == "note"]
-    assert notes == [{"text": "tips cleaned", "die": [0, 1], "site": "line-a"}]
+    # taken with the probes up after the skip, the note is about the landing still on
+    # the board (die 1,0 line-b), not the next site
+    assert notes == [{"text": "tips cleaned", "die": [1, 0], "site": "line-b"}]
 
     # ---- resume: no cautions again, straight to probing where we stopped
     async def second_sitting():

@@ -102,7 +102,7 @@ class BenchScreen(Screen):
             "accept": lambda: engine.accept(reason),
             "skip": lambda: engine.skip(reason),
             "skip-die": lambda: self._skip_die(engine, die, reason),
-            "note": lambda: engine.note(reason),
+            "note": lambda: engine.note(reason, tuple(die) if die is not None else None, site),
             "recalibrate": lambda: engine.recalibrate(reason),
             "cal-accept": lambda: engine.accept_calibration(),
             "cal-redo": lambda: engine.redo_calibration(reason),
@@ -171,11 +171,12 @@ class BenchScreen(Screen):
         return None
 
     def action_note(self) -> None:
-        # the question says where the engine files the note: the landing waiting
-        # for a decision, else the next site
+        # the note goes where the operator is looking: the landing on the board
+        # (decided or not), else the next site
         pos = self.shown_position()
         where = f"die {pos[0][0]},{pos[0][1]} · {pos[1]}" if pos else "the session"
-        self.ask_then_record("note", f"Note for the journal, at {where}:", NOTE_PRESETS)
+        self.ask_then_record("note", f"Note for the journal, at {where}:", NOTE_PRESETS,
+                             die=pos[0] if pos else None, site=pos[1] if pos else None)
 
     def action_toggle_polar(self) -> None:
         for chart in self.query(SmithChart):

@@ -252,6 +252,9 @@ class Probe(BenchScreen):
         last = self.engine.last_outcome
         if kind_name(self.engine.phase) == "DECIDING" and last is not None:
             return tuple(last.step.die), last.step.site
+        shown = self._shown  # a decided landing stays on the board until the next one
+        if shown is not None and kind_name(shown.step.kind) == "SITE":
+            return tuple(shown.step.die), shown.step.site
         nxt = self.engine.next_step
         return (tuple(nxt.die), nxt.site) if nxt is not None else None
 
