@@ -37,7 +37,7 @@ OPENED, CALIBRATING, VERIFYING, PROBING, DECIDING, CLOSED = (
     "opened", "calibrating", "verifying", "probing", "deciding", "closed")
 
 # Die status values (die map, summaries): one per distinct outcome.
-TODO, PARTIAL, DONE, SKIPPED, FAILED, ACCEPTED_DESPITE_FAIL = (
+NOT_STARTED, PARTIAL, DONE, SKIPPED, FAILED, ACCEPTED_DESPITE_FAIL = (
     "todo", "partial", "done", "skipped", "failed", "accepted-despite-fail")
 
 
@@ -120,7 +120,7 @@ class SessionState(_S, frozen=True):
         acts = [by_site[s].decision.action for s in planned_sites  # type: ignore[union-attr]
                 if s in by_site and by_site[s].decision is not None]
         if not acts:
-            return TODO
+            return NOT_STARTED
         if len(acts) < len(planned_sites):
             return PARTIAL
         if all(a == ev.SKIP for a in acts):
