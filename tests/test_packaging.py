@@ -23,8 +23,9 @@ def _setuptools() -> dict:
 def _package_folders() -> set[str]:
     names = set()
     for top, name in (("probelog", "probelog"), ("drivers", "probelog.drivers"), ("tui", "probelog.tui")):
-        for init in (ROOT / top).rglob("__init__.py"):
-            rel = init.parent.relative_to(ROOT / top)
+        # a folder with Python files is a package, __init__.py or not (probelog/catalog/)
+        for folder in {p.parent for p in (ROOT / top).rglob("*.py") if "__pycache__" not in p.parts}:
+            rel = folder.relative_to(ROOT / top)
             names.add(".".join([name, *rel.parts]))
     return names
 
