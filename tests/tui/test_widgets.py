@@ -131,3 +131,14 @@ def test_journal_tail_waits_for_a_torn_line(tmp_path):
     events = tail.read_new()
     assert [e.seq for e in events] == [2]
     assert "“b”" in describe(events[0]).plain
+
+
+def test_cautions_reflow_joins_continuations_and_keeps_every_word():
+    from probelog.engine.types import CAUTIONS
+    from probelog.tui.screens.cautions import reflow
+
+    out = reflow(CAUTIONS)
+    assert out.split() == CAUTIONS.split()  # nothing lost or reordered
+    assert not any(line.startswith(" ") for line in out.splitlines())
+    assert len(out.splitlines()) == sum(1 for ln in CAUTIONS.splitlines() if not ln.startswith("  "))
+    assert reflow("- one\n  two\n- three") == "- one two\n- three"

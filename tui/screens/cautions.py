@@ -25,8 +25,22 @@ class Cautions(ModalScreen[bool]):
     def compose(self) -> ComposeResult:
         with Vertical(id="cautions-box"):
             yield Static("▲ BEFORE YOU TOUCH DOWN", id="cautions-title")
-            yield Static(self.text, id="cautions-text")
+            yield Static(reflow(self.text), id="cautions-text")
             yield Label("[b]y[/b] / [b]enter[/b] understood     [b]q[/b] stop here", id="cautions-keys")
 
     def action_answer(self, ok: bool) -> None:
         self.dismiss(ok)
+
+
+def reflow(text: str) -> str:
+    """Join the text's hard-wrapped continuation lines (indented) onto their bullet,
+    so the screen wraps each bullet to its own width: at 80 columns the journaled
+    line breaks left orphaned half-lines."""
+    out: list[str] = []
+    for line in text.splitlines():
+        if line.startswith("  ") and out:
+            out[-1] = f"{out[-1]} {line.strip()}"
+        else:
+            out.append(line)
+    return "\n".join(out)
+
