@@ -375,12 +375,21 @@ def _calibration(inp: ReportInputs) -> str:
 STUB_KINDS = {"open-stub", "short-stub"}
 
 
+def smith_background(ax: Any) -> None:
+    """scikit-rf's Smith chart grid with plain-text labels: it writes infinity in
+    mathtext, and every label of the report is drawn as plain text (see _png)."""
+    import skrf
+
+    skrf.plotting.smith(ax=ax, chart_type="z", draw_labels=True)
+    for text in ax.texts:
+        if text.get_text() == r"$\infty$":
+            text.set_text("\u221e")
+
+
 def _smith(inp: ReportInputs) -> str:
     """Verification stubs (plan kind open-stub / short-stub; every verification
     structure when the plan does not say) on a Smith chart, with |Sii| in dB
     beside it: a passive stub stays inside the chart and below 0 dB."""
-    import skrf
-
     traces = []
     for e in inp.index.cal_events:
         d = e.data
@@ -398,7 +407,7 @@ def _smith(inp: ReportInputs) -> str:
     fig = Figure(figsize=(12, 5.6))
     ax = fig.add_subplot(1, 2, 1)
     mag = fig.add_subplot(1, 2, 2)
-    skrf.plotting.smith(ax=ax, chart_type="z", draw_labels=True)
+    smith_background(ax)
     for label, ntwk, verdict in traces:
         for port, style in ((0, "-"), (1, "--")):
             if ntwk.s.shape[1] <= port:

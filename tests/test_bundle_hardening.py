@@ -190,3 +190,16 @@ def test_broken_chain_is_damage_too(tmp_path):
     export_bundle(bad, tmp_path / "y", progress=False, allow_damaged=True, damage=kept)
     assert kept and kept[0].startswith("journal chain")
     assert np.isfinite(skrf.Network(str(tmp_path / "y/data/d3_4/ln-cpw-m9-r1-l500/L1-cor.s2p")).s).all()
+
+
+def test_smith_chart_labels_are_plain_text_too():
+    """scikit-rf labels the chart's right edge '$\\infty$' (mathtext); drawn as plain
+    text that would read as dollars and a backslash, so it becomes the infinity sign."""
+    from matplotlib.figure import Figure
+
+    from probelog.report import smith_background
+
+    ax = Figure().add_subplot()
+    smith_background(ax)
+    labels = [t.get_text() for t in ax.texts]
+    assert "\u221e" in labels and not any("$" in t for t in labels)
