@@ -22,6 +22,8 @@ import json
 import math
 import os
 import re
+import shutil
+import tempfile
 import threading
 from dataclasses import dataclass, field, is_dataclass
 from datetime import datetime, timezone
@@ -43,6 +45,7 @@ _OPEN_FLAGS = getattr(os, "O_CLOEXEC", 0) | getattr(os, "O_BINARY", 0)
 JOURNAL_NAME = "journal.jsonl"
 DATA_DIR = "data"
 LOCK_NAME = ".lock"
+STAGING_PREFIX = ".creating-"  # a session folder being built; renamed into place whole
 TORN_PREFIX = "journal.torn-"
 ZERO_HASH = "0" * 64
 _TEMP_RE = re.compile(r"^\..+\.tmp-\d+-\d+$")
@@ -400,24 +403,52 @@ class Journal:
             root.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise JournalError(f"{root}: cannot create the folder for sessions: {_os_reason(exc)}") from None
+        # The folder is built under a hidden staging name and renamed into place
+        # whole, so a kill at any instant leaves either no session folder or one
+        # with its journal (a killed start leaves only a '.creating-*' folder,
+        # which no session list shows).
+        try:
+            staging = Path(tempfile.mkdtemp(prefix=f"{STAGING_PREFIX}{session_id}-", dir=root))
+        except OSError as exc:
+            raise JournalError(f"{root}: cannot create a session folder: {_os_reason(exc)}") from None
+        lock_fd = cls._lock(staging)
+        try:
+            (staging / DATA_DIR).mkdir()
+            fd = os.open(staging / JOURNAL_NAME, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_APPEND | _OPEN_FLAGS,
+                         0o644)
+            os.fsync(fd)
+            _fsync_dir(staging)
+        except OSError as exc:
+            os.close(lock_fd)
+            shutil.rmtree(staging, ignore_errors=True)
+            raise JournalError(f"{root / session_id}: cannot create the journal: {_os_reason(exc)}") from None
+        folder = root / session_id
         for n in range(1, 1000 if unique else 2):
             folder = root / (session_id if n == 1 else f"{session_id}-{n}")
+            if folder.exists() or folder.is_symlink():
+                continue
             try:
-                folder.mkdir()  # atomic: of two processes racing for a name, one wins
+                # Atomic; of two processes racing for a name one wins, the other
+                # finds the winner's folder not empty and tries the next name.
+                os.rename(staging, folder)
                 break
-            except FileExistsError:
+            except (FileExistsError, IsADirectoryError, NotADirectoryError):
                 continue
             except OSError as exc:
+                if exc.errno in (errno.ENOTEMPTY, errno.EEXIST):
+                    continue
+                os.close(fd)
+                os.close(lock_fd)
+                shutil.rmtree(staging, ignore_errors=True)
                 raise JournalError(f"{folder}: cannot create the session folder: {_os_reason(exc)}") from None
         else:
+            os.close(fd)
+            os.close(lock_fd)
+            shutil.rmtree(staging, ignore_errors=True)
             raise JournalError(f"{folder}: a session folder of that name exists already")
-        journal = cls(folder, cls._lock(folder))
+        journal = cls(folder, lock_fd)
+        journal._fd = fd
         try:
-            (folder / DATA_DIR).mkdir()
-            fd = os.open(journal.path, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_APPEND | _OPEN_FLAGS, 0o644)
-            os.fsync(fd)
-            journal._fd = fd
-            _fsync_dir(folder)
             _fsync_dir(root)
         except OSError as exc:
             journal.close()

@@ -41,6 +41,33 @@ def test_existing_session_folder_still_says_it_exists(tmp_path):
         Journal.create(tmp_path, "20261201-224501-QF2611-W07")
 
 
+def test_a_start_killed_mid_creation_leaves_no_session_folder_without_a_journal(tmp_path, monkeypatch):
+    """Found by the kill trials: a kill between making the session folder and
+    making its journal left a folder that resume calls 'not a session'. The
+    folder is now built under a hidden name and renamed into place whole; a
+    kill at the rename (simulated by an exception there) leaves no visible
+    folder, and the start picker ignores the hidden one."""
+    from probelog.tui.screens.intake import find_unfinished
+
+    class Killed(BaseException):
+        pass
+
+    def killed(src, dst):
+        raise Killed
+
+    monkeypatch.setattr(os, "rename", killed)
+    with pytest.raises(Killed):
+        Journal.create(tmp_path, "20261201-224501-QF2611-W07")
+    monkeypatch.undo()
+    visible = [p.name for p in tmp_path.iterdir() if not p.name.startswith(".")]
+    assert visible == []
+    assert find_unfinished(tmp_path) == []  # the staging folder does not show up to resume
+    # the next start takes the name and gets a complete folder
+    with Journal.create(tmp_path, "20261201-224501-QF2611-W07") as j:
+        assert j.path.is_file() and j.root.name == "20261201-224501-QF2611-W07"
+        assert (j.root / "data").is_dir()
+
+
 def test_unreadable_journal_is_called_unreadable_not_read_only(tmp_path, monkeypatch, capsys):
     folder = _session(tmp_path, n=2)
     real = Path.read_bytes

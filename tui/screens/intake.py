@@ -65,6 +65,8 @@ def find_unfinished(root: Path) -> list[Unfinished]:
     session whose journal says it was completed."""
     found = []
     for journal in sorted(Path(root).glob("*/journal.jsonl"), reverse=True):
+        if journal.parent.name.startswith("."):
+            continue  # a start killed before its folder was renamed into place
         if (journal.parent / "manifest.csv").exists():
             continue  # an analyst bundle: resuming it would write landings into it
         try:
