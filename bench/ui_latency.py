@@ -34,14 +34,14 @@ SITES = ["ln-cpw-m9-r2-l500", "ln-cpw-m9-r2-l1500"]
 
 
 def _plan():
-    from run import demo_plan  # bench/run.py puts bench/ on sys.path
+    from rig import demo_plan  # bench/ is on sys.path (python puts the script's folder there)
 
     return demo_plan(201, sites=SITES, dies=DIES, drift_every=100000)
 
 
 def headless_landings(rig, root: Path, n: int) -> list[float]:
     """Seconds per ``engine.measure()`` on a calibrated engine, accept untimed."""
-    from run import calibrated_engine
+    from rig import calibrated_engine
 
     engine = calibrated_engine(rig, _plan(), root)
     times = []
@@ -60,7 +60,7 @@ def headless_landings(rig, root: Path, n: int) -> list[float]:
 
 def ui_landings(rig, root: Path, n: int) -> list[float]:
     """Seconds from pressing the measure key to the message after the verdict board update."""
-    from run import calibrated_engine
+    from rig import calibrated_engine
     from textual.worker import WorkerState
 
     from probelog.tui.app import build_app
@@ -175,7 +175,7 @@ def startup_seconds(root: Path, repeat: int) -> list[float]:
 class ProcessRig:
     """The simulated bench in its own process (``python -m probelog.tui simbench``), as a
     real VNA and prober are: their replies never wait for this process's GIL.
-    Same attributes as bench/run.py's SimRig that the engine needs (``bench``)."""
+    Same attributes as bench/rig.py's SimRig that the engine needs (``bench``)."""
 
     def __init__(self, seed: int = 5):
         import subprocess
