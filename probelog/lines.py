@@ -172,12 +172,16 @@ def metrics_from_s(
     if length_m <= 0:
         raise ValueError(f"line length must be positive, got {length_m} m")
     f_hz = np.asarray(f_hz, dtype=float)
-    abcd = abcd_from_s(s, z0_ref)
-    a_mean = 0.5 * (abcd[:, 0, 0] + abcd[:, 1, 1])
-    root = np.sqrt(a_mean**2 - 1.0)
-    egl = np.where(np.abs(a_mean + root) >= np.abs(a_mean - root), a_mean + root, a_mean - root)
-    gl = _branch(np.log(egl), f_hz, length_m, eps_eff_guess)
-    z0 = np.sqrt(abcd[:, 0, 1] / abcd[:, 1, 0])
+    # A landing with no transmission (a lifted tip, S21 = 0) has no line metrics:
+    # its points come out inf/NaN, which the checks and the figures treat as
+    # missing; numpy's warnings would only print noise into the operator's terminal.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        abcd = abcd_from_s(s, z0_ref)
+        a_mean = 0.5 * (abcd[:, 0, 0] + abcd[:, 1, 1])
+        root = np.sqrt(a_mean**2 - 1.0)
+        egl = np.where(np.abs(a_mean + root) >= np.abs(a_mean - root), a_mean + root, a_mean - root)
+        gl = _branch(np.log(egl), f_hz, length_m, eps_eff_guess)
+        z0 = np.sqrt(abcd[:, 0, 1] / abcd[:, 1, 0])
     z0 = np.where(z0.real < 0, -z0, z0)
     return LineMetrics(f_hz=f_hz, z0=z0, gamma=gl / length_m)
 
