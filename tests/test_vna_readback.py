@@ -136,6 +136,9 @@ def test_a_power_changed_at_the_instrument_is_caught_at_the_next_precheck(bench,
     rm = pyvisa.ResourceManager("@py")
     raw = rm.open_resource(bench.resources[0], read_termination="\n", write_termination="\n", timeout=2000)
     raw.write("SOURce:POWer 4")  # someone at the front panel, or a stray second command
+    # Each connection has its own server thread: wait until this one has taken the
+    # command, or the driver's read-back on its own connection can overtake it.
+    assert float(raw.query("SOURce:POWer?")) == 4.0
     raw.close()
     sweeps = bench.vna.sweeps
     with pytest.raises(SettingMismatch, match=r"reads back a source power of \+4 dBm .* above the plan's limit "
