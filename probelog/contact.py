@@ -211,7 +211,7 @@ def physics_contact(raw: skrf.Network, raw_open: skrf.Network, raw_short: skrf.N
     raw: the landing's raw (uncorrected) sweep, 1- or 2-port, any grid (Hz);
     raw_open, raw_short: the active calibration's raw open and short (2-port
     pairs), measured with the same probes; kind: the site kind (see
-    :data:`probelog.checks.KINDS`); expect: the plan's expectation mapping of the
+    :data:`probelog.plan_types.KINDS`); expect: the plan's expectation mapping of the
     site (``length_um``, ``eps_eff_window``...) or None; limits: the check limits
     (contact_floor, contact_open_dc_f, contact_short_dl_h, contact_judge_max,
     raw_transmission_fail_db, contact_low_hz).
