@@ -3,7 +3,8 @@ served over loopback TCP, ScpiVna / ScpiProber through pyvisa-py (wired by
 tui.benches.build_bench as `probelog run --bench sim` does), probelog.session.Engine
 journaling for real. A lifted port-1 tip is injected on the first site the plan
 lands on; the operator calibrates from the keyboard, sees the fault caught, re-lands
-to a pass, finishes the reduced plan and quits. Then the journal is read back.
+to a pass, finishes the reduced plan, shades the wafer by a line metric and quits.
+Then the journal is read back.
 """
 
 from __future__ import annotations
@@ -18,6 +19,8 @@ from probelog.tui.app import build_app
 from probelog.tui.messages import ChecksFinished, LandingStarted, SweepMeasured
 from probelog.tui.screens.calibrate import Calibrate
 from probelog.tui.screens.probe import Probe
+from probelog.tui.screens.wafer import WaferView
+from probelog.tui.widgets.die_map import SHADES, DieMap
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "probelog" / "plans" / "demo.toml"
@@ -73,6 +76,7 @@ def test_real_engine_on_the_simulated_bench(tmp_path):
         return engines[-1]
 
     messages: list = []
+    by_metric: dict = {}
 
     async def go():
         app = build_app(factory, show_cautions=False)
@@ -106,6 +110,15 @@ def test_real_engine_on_the_simulated_bench(tmp_path):
                 assert "✖ FAIL" not in board_text(app), board_text(app)
                 await press(pilot, "a")
             assert "every site of the plan is decided" in str(app.screen.query_one("#where").render())
+            # the wafer by a line metric of a real session: a shade on every die
+            await press(pilot, "w", "m")
+            assert isinstance(app.screen, WaferView)
+            die_map = app.screen.query_one(DieMap)
+            assert die_map.values is not None and set(die_map.values) == set(DIES), die_map.values
+            assert sum(die_map.render().plain.count(s) for s in SHADES) == len(DIES)
+            by_metric.update(choice=app.screen._choice(), values=dict(die_map.values))
+            assert by_metric["choice"].label in screen_text(app)
+            await press(pilot, "escape")
             await quit_session(pilot)
         assert app.return_code == 0
 
@@ -129,6 +142,14 @@ def test_real_engine_on_the_simulated_bench(tmp_path):
     assert decisions[0] == (fault[0], fault[1], "reland")
     kept = {(d, s) for d, s, a in decisions if a == "accept"}
     assert kept == {(tuple(d), s) for d in DIES for s in SITES}
+    # the map showed, for each die, the figure journaled with its kept landing at the
+    # journaled frequency nearest the chosen one (read here from the raw lines)
+    choice = by_metric["choice"]
+    for die in DIES:
+        kept = [p for p in landings if tuple(p["die"]) == die and p["site"] == choice.site][-1]
+        f = kept["metrics"]["f_hz"]
+        i = min(range(len(f)), key=lambda k: abs(f[k] - choice.f_hz))
+        assert by_metric["values"][die] == kept["metrics"][choice.key][i]
     # every landing's data file is on disk with the hash the journal names
     import hashlib
 

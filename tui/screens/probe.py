@@ -18,12 +18,13 @@ from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.widgets import Header
 
-from probelog.tui.journal_read import kept_despite_fail, type_of
+from probelog.tui.journal_read import type_of
 from probelog.tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from probelog.tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
 from probelog.tui.screens.dialogs import Confirm
-from probelog.tui.screens.wafer import WaferView, cal_die_of
+from probelog.tui.screens.wafer import WaferView
 from probelog.tui.screens.wafer import die_history as die_history  # one history for the panel and the tests
+from probelog.tui.wafer_read import cal_die_of, kept_despite_fail
 from probelog.tui.widgets.bench_footer import BenchFooter
 from probelog.tui.widgets.die_map import DieMap
 from probelog.tui.widgets.logbook import Logbook
@@ -371,7 +372,7 @@ class Probe(BenchScreen):
             return
         self._map_key = key
         self.query_one("#map", DieMap).update_state(engine.wafer_status, current, cal_die=cal_die_of(events_),
-                                                    flagged=set(kept_despite_fail(events_)))
+                                                    flagged=kept_despite_fail(engine.state))
 
     def journal_grew(self, events_: list[dict]) -> None:
         super().journal_grew(events_)

@@ -9,8 +9,6 @@ answers with what the operator asked for (go to a die, skip a die) or None.
 
 from __future__ import annotations
 
-from typing import Any
-
 from textual import events
 from textual.app import ComposeResult
 from textual.binding import Binding
@@ -18,11 +16,12 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Static
 
+from probelog import events as ev
 from probelog import state as st
 from probelog import state_views as sv
+from probelog.engine.protocol import EngineProtocol
 from probelog.state import SessionState
-from probelog.tui.journal_read import (MetricChoice, field, fold_metrics, type_of, kept_despite_fail, metric_choices,
-                              metric_frequencies, metric_values)
+from probelog.tui.wafer_read import MetricChoice, cal_die_of, kept_despite_fail, metric_choices, metric_values
 from probelog.tui.widgets.bench_footer import BenchFooter
 from probelog.tui.widgets.die_map import STATUS_WORD, DieMap, legend
 from probelog.tui.widgets.verdict_board import verdict_word_of
@@ -52,16 +51,6 @@ def history_panel(state: SessionState, die: tuple[int, int]) -> list[str]:
     return [text for _, text in sorted(rows)]
 
 
-def cal_die_of(events: list[dict]) -> tuple[int, int] | None:
-    """The die the last calibration's standards were landed on."""
-    for ev in reversed(events):
-        if type_of(ev) == "cal-standard":
-            d = field(ev, "die")
-            if isinstance(d, (list, tuple)) and len(d) == 2:
-                return int(d[0]), int(d[1])
-    return None
-
-
 class WaferView(ModalScreen[tuple[str, tuple[int, int]] | None]):
     """The die map, full-screen."""
 
@@ -83,14 +72,17 @@ class WaferView(ModalScreen[tuple[str, tuple[int, int]] | None]):
         Binding("escape,w", "back", "back", tooltip="Back to probing"),
     ]
 
-    def __init__(self, engine: Any, events: list[dict]) -> None:
+    def __init__(self, engine: EngineProtocol, events: list[ev.Event]) -> None:
         super().__init__()
         self.engine = engine
         self.events = events
-        self.metrics = fold_metrics(events)
-        self.choices = metric_choices(self.metrics)
+        # the session as the engine reads it, at the moment the view opens (a modal:
+        # nothing is measured while it is up)
+        self.state = engine.state
+        self.choices = metric_choices(self.state)
+        self.freqs = sv.metric_frequencies(self.state)
         self.choice_i = -1  # -1: by status
-        self.freq_i = 0
+        self.freq_i = len(self.freqs) // 2  # the middle one, as state_views.die_metrics
 
     def compose(self) -> ComposeResult:
         yield Static(id="wafer-title")
@@ -106,7 +98,7 @@ class WaferView(ModalScreen[tuple[str, tuple[int, int]] | None]):
         last, nxt = self.engine.last_outcome, self.engine.next_step
         current = last.step.die if last is not None else (nxt.die if nxt is not None else None)
         die_map.update_state(self.engine.wafer_status, current, cal_die=cal_die_of(self.events),
-                             flagged=set(kept_despite_fail(self.events)))
+                             flagged=kept_despite_fail(self.state))
         self.query_one("#history").display = False
         self.query_one("#history").border_title = "die history"
         self.query_one("#legend").border_title = "legend"
@@ -127,7 +119,7 @@ class WaferView(ModalScreen[tuple[str, tuple[int, int]] | None]):
         if self.choice_i < 0 or not self.choices:
             return None
         site, key = self.choices[self.choice_i]
-        freqs = metric_frequencies(self.metrics, site) or [0.0]
+        freqs = self.freqs or [0.0]
         return MetricChoice(site, key, freqs[self.freq_i % len(freqs)])
 
     def _recolour(self) -> None:
@@ -137,7 +129,7 @@ class WaferView(ModalScreen[tuple[str, tuple[int, int]] | None]):
             die_map.colour_by(None)
             self.query_one("#legend", Static).update(legend(None))
         else:
-            values = metric_values(self.metrics, choice)
+            values = metric_values(self.state, choice)
             die_map.colour_by(values, choice.label)
             self.query_one("#legend", Static).update(legend(values, choice.label))
         self._title()
@@ -160,7 +152,7 @@ class WaferView(ModalScreen[tuple[str, tuple[int, int]] | None]):
         cur = self.query_one(DieMap).cursor
         if not panel.display or cur is None:
             return
-        lines = history_panel(self.engine.state, cur)
+        lines = history_panel(self.state, cur)
         panel.border_title = f"die {cur[0]},{cur[1]} history (h closes)"
         panel.update("\n".join(lines[-30:]) if lines else "nothing measured on this die yet")
 
