@@ -22,6 +22,8 @@ from probelog.tui.journal_read import type_of
 from probelog.tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from probelog.tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
 from probelog.tui.screens.dialogs import Confirm
+from probelog.tui.screens.probe_text import (KEEP_FAIL_PRESETS, RECAL_PRESETS, SKIP_DIE_PRESETS, SKIP_PRESETS,
+                                             goto_refusal, where_parts)
 from probelog.tui.screens.wafer import WaferView
 from probelog.tui.screens.wafer import die_history as die_history  # one history for the panel and the tests
 from probelog.tui.wafer_read import cal_die_of, kept_despite_fail
@@ -31,16 +33,9 @@ from probelog.tui.widgets.logbook import Logbook
 from probelog.tui.widgets.smith import SmithChart
 from probelog.tui.widgets.sweep_plot import SweepPlot
 from probelog.tui.widgets.tip_wear import TipWear
-from probelog.tui.widgets.verdict_board import VerdictBoard, summarize, verdict_word
+from probelog.tui.widgets.verdict_board import VerdictBoard, summarize
 from probelog.tui.widgets.where_bar import WhereBar, describe_step, kind_name
 
-SKIP_PRESETS = ("structure damaged", "pads contaminated", "die known bad", "out of time on this wafer")
-SKIP_DIE_PRESETS = ("die dead: no site answers", "die cracked or scratched", "pads contaminated on the whole die",
-                    "die known bad from an earlier test")
-KEEP_FAIL_PRESETS = ("the device is expected to fail this check", "checked under the microscope: contact is good",
-                     "structure known damaged; kept for the record")
-RECAL_PRESETS = ("drift reference out of limits", "probes re-planarised", "scheduled recalibration",
-                 "room temperature changed")
 COMPACT_WIDTH, COMPACT_HEIGHT = 100, 32
 
 # which keys apply in which state of the screen (see Probe.state)
@@ -213,15 +208,7 @@ class Probe(BenchScreen):
 
     def _ask_goto(self, die: tuple[int, int]) -> None:
         """Land on ``die`` next, after a y/n confirmation (or say why not)."""
-        status = self.engine.wafer_status.get(die)
-        phase = kind_name(self.engine.phase)
-        refusal = ("wait: the instrument is busy" if self.busy else
-                   "decide on this landing first (keep, re-land or skip)" if phase == "DECIDING" else
-                   "calibrate first" if phase in ("CALIBRATING", "VERIFYING") else
-                   "every site of the plan is decided" if phase == "DONE" else
-                   f"die {die[0]},{die[1]} is not in the plan" if status is None else
-                   f"die {die[0]},{die[1]} is {status}: nothing left to land on"
-                   if status in ("done", "failed", "skipped") else None)
+        refusal = goto_refusal(self.engine, die, self.busy)
         if refusal:
             self.notify(refusal, title=f"cannot go to die {die[0]},{die[1]}", severity="warning", timeout=4)
             return
@@ -366,12 +353,12 @@ class Probe(BenchScreen):
         engine = self.engine
         last = engine.last_outcome
         current = last.step.die if last is not None else (engine.next_step.die if engine.next_step else None)
-        events_ = self.app.journal_events
         key = (engine.progress, current, self._decisions_seen)
         if key == self._map_key:
             return
         self._map_key = key
-        self.query_one("#map", DieMap).update_state(engine.wafer_status, current, cal_die=cal_die_of(events_),
+        self.query_one("#map", DieMap).update_state(engine.wafer_status, current,
+                                                    cal_die=cal_die_of(self.app.journal_events),
                                                     flagged=kept_despite_fail(engine.state))
 
     def journal_grew(self, events_: list[dict]) -> None:
@@ -382,26 +369,5 @@ class Probe(BenchScreen):
             self._refresh_map()
 
     def _where(self, doing: str | None = None) -> None:
-        engine = self.engine
-        state = self.state()
-        done, total = engine.progress
-        last, nxt = engine.last_outcome, engine.next_step
-        if state == "error":
-            here = "the last landing did not complete: nothing was recorded for it"
-            next_ = "[enter] retry (the link is reopened)  [s] skip site  [x] skip die"
-        elif state in ("pass", "fail") and last is not None:
-            here = f"{describe_step(last.step)} · {verdict_word(last.verdict)}"
-            next_ = ("[enter] re-land  [s] skip  [x] skip die  [A] keep FAIL (asks why)" if state == "fail"
-                     else "[enter] keep + next site  [a] keep  [r] re-land  [s] skip")
-        elif kind_name(engine.phase) == "DONE":
-            here, next_ = "every site of the plan is decided", "[q] close the journal and quit"
-        else:
-            here = "probes up"
-            next_ = f"{describe_step(nxt)}   [enter]" if nxt is not None else "—"
-            if nxt is not None and kind_name(nxt.kind) == "DRIFT":
-                next_ = "drift reference: " + next_
-        here += f"  ·  sites {done}/{total}"
-        if doing is None:
-            doing = ("✖ instrument error: see the board" if state == "error" else
-                     "busy…" if self.busy else ("DONE" if state == "done" else "idle: waiting for you"))
-        self.query_one("#where", WhereBar).show(here, next_, doing)
+        here, next_, idle = where_parts(self.engine, self.state(), self.busy)
+        self.query_one("#where", WhereBar).show(here, next_, doing if doing is not None else idle)
