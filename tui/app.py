@@ -65,6 +65,7 @@ class ProbelogApp(App[int]):
         self.journal_events: list[ev.Event] = []
         self._tail: JournalTail | None = None
         self._session_closing = False
+        self.close_cause: str | None = None  # a signal's name, set by probelog.tui.interrupts
         self.farewell = ""  # printed by run_app once the terminal is back
 
     # ---------------------------------------------------------------- opening
@@ -133,6 +134,8 @@ class ProbelogApp(App[int]):
 
     def route(self) -> None:
         """Put the screen the engine's phase calls for under any open dialog."""
+        if self.engine is None:
+            return  # nothing to route to before the session is open
         wanted = SCREEN_FOR_PHASE[kind_name(self.engine.phase)]
         base = next((s for s in reversed(self.screen_stack) if not isinstance(s, ModalScreen)), None)
         if isinstance(base, wanted):
@@ -188,9 +191,11 @@ class ProbelogApp(App[int]):
             self.push_screen(Failure("Could not close the journal cleanly", text,
                                      "Everything acknowledged is on disk; resume the session to finish it."),
                              lambda _: self.exit(1))
-        elif hasattr(error, "where"):  # an instrument failed: the board holds the error state too
-            title, todo = instrument_advice(error.where)
-            detail = f"{type(error.error).__name__}: {error.error}" if hasattr(error, "error") else text
+        elif (where := getattr(error, "where", None)) is not None:
+            # an instrument failed (probelog.engine InstrumentError): the board holds the error state too
+            title, todo = instrument_advice(where)
+            inner = getattr(error, "error", None)
+            detail = f"{type(inner).__name__}: {inner}" if inner is not None else text
             for screen in self.screen_stack:
                 if isinstance(screen, BenchScreen):
                     screen.instrument_failed(title, todo, detail)
@@ -209,8 +214,9 @@ class ProbelogApp(App[int]):
 
     # ---------------------------------------------------------------- closing
 
-    def action_quit(self) -> None:
-        # after the next repaint: from the command palette, a dialog pushed at once
+    async def action_quit(self) -> None:
+        # App.action_quit (overridden: it would exit without closing the journal) is a
+        # coroutine. After the next repaint: from the command palette, a dialog pushed at once
         # would be taken down with the palette
         self.call_after_refresh(self.action_close_session)
 
@@ -237,7 +243,9 @@ class ProbelogApp(App[int]):
     @work(thread=True, exclusive=True, exit_on_error=False, group="closing", description="Closing the journal")
     def close_engine(self) -> None:
         engine = self.engine
-        cause = getattr(self, "close_cause", None)  # a signal's name, set by probelog.tui.interrupts
+        if engine is None:
+            return  # _start_closing exits at once without an engine
+        cause = self.close_cause
         engine.close(cause=cause) if cause else engine.close()
         bench = getattr(engine, "bench", None)
         if bench is not None:
@@ -245,6 +253,7 @@ class ProbelogApp(App[int]):
         self.post_message(SessionClosed(kind_name(engine.phase) == "DONE"))
 
     def on_session_closed(self, message: SessionClosed) -> None:
+        assert self.engine is not None  # posted by close_engine, which needs one
         folder = self.engine.session_dir
         if message.completed:
             self.farewell = f"probelog: session complete; journal and data in {folder}"

@@ -15,7 +15,9 @@ from textual.reactive import var
 from textual.screen import Screen
 from textual.worker import Worker, WorkerState
 
+from probelog import events as ev
 from probelog.engine.protocol import EngineProtocol
+from probelog.tui.host import host
 from probelog.tui.messages import CalibrationSolved, ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from probelog.tui.screens.dialogs import AskReason, KeysHelp, help_rows
 from probelog.tui.widgets.verdict_board import VerdictBoard
@@ -60,7 +62,8 @@ class BenchScreen(Screen):
 
     @property
     def engine(self) -> EngineProtocol:
-        engine: EngineProtocol = self.app.engine  # type: ignore[attr-defined]  # set before any bench screen opens
+        engine = host(self.app).engine
+        assert engine is not None  # the app opens a bench screen only once the engine is open
         return engine
 
     # ---------------------------------------------------------------- workers
@@ -123,7 +126,7 @@ class BenchScreen(Screen):
 
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
         if event.state is WorkerState.ERROR:
-            self.app.worker_failed(event.worker)
+            host(self.app).worker_failed(event.worker)
         if event.worker.group == "bench":
             self.busy = event.state in (WorkerState.PENDING, WorkerState.RUNNING)
             if not self.busy:
@@ -147,13 +150,13 @@ class BenchScreen(Screen):
     def refresh_view(self) -> None:
         """Redraw what the engine's state says (overridden by each screen)."""
 
-    def journal_grew(self, events: list[dict]) -> None:
+    def journal_grew(self, events: list[ev.Event]) -> None:
         for log in self.query(Logbook):
-            log.sync(self.app.journal_events)
+            log.sync(host(self.app).journal_events)
 
     def on_mount(self) -> None:
         for log in self.query(Logbook):
-            log.sync(self.app.journal_events)
+            log.sync(host(self.app).journal_events)
         self.refresh_view()
 
     # ---------------------------------------------------------------- shared keys
@@ -185,15 +188,15 @@ class BenchScreen(Screen):
     def action_journal(self) -> None:
         from probelog.tui.screens.journal_view import JournalView
 
-        self.app.push_screen(JournalView(list(self.app.journal_events)))
+        self.app.push_screen(JournalView(list(host(self.app).journal_events)))
 
     def action_keys(self) -> None:
         self.app.push_screen(KeysHelp(f"keys · {self.sub_title}", help_rows(self)))
 
     def on_screen_resume(self) -> None:
         # a dialog closed: the engine's phase may have moved on while it was up
-        if self.app.engine is not None:
-            self.app.route()
+        if host(self.app).engine is not None:
+            host(self.app).route()
 
     def instrument_failed(self, title: str, todo: str, detail: str) -> None:
         """An instrument call failed: the board says so until the operator acts."""

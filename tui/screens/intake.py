@@ -16,6 +16,7 @@ from textual.widgets import Button, Header, Input, Label, OptionList, Select, St
 from textual.widgets.option_list import Option
 
 from probelog import events as ev
+from probelog.tui.host import host
 from probelog.tui.widgets.bench_footer import BenchFooter
 
 BENCH_KINDS = (
@@ -160,7 +161,7 @@ class Intake(Screen):
 
     def on_worker_state_changed(self, event) -> None:
         if event.state.name == "ERROR":
-            self.app.worker_failed(event.worker)
+            host(self.app).worker_failed(event.worker)
 
     @on(Select.Changed, "#in-bench")
     def _bench_changed(self, event: Select.Changed) -> None:

@@ -18,6 +18,8 @@ from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.widgets import Header
 
+from probelog import events as ev
+from probelog.tui.host import host
 from probelog.tui.journal_read import type_of
 from probelog.tui.messages import ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from probelog.tui.screens.base import BUSY_SHOW_S, BenchScreen, reflections, turns_matter
@@ -204,7 +206,7 @@ class Probe(BenchScreen):
                 self._ask_goto(die)
             elif what == "skip-die":
                 self._ask_skip_die(die)
-        self.app.push_screen(WaferView(self.engine, list(self.app.journal_events)), answered)
+        self.app.push_screen(WaferView(self.engine, list(host(self.app).journal_events)), answered)
 
     def _ask_goto(self, die: tuple[int, int]) -> None:
         """Land on ``die`` next, after a y/n confirmation (or say why not)."""
@@ -234,7 +236,7 @@ class Probe(BenchScreen):
     def _target_die(self) -> tuple[int, int] | None:
         last, nxt = self.engine.last_outcome, self.engine.next_step
         step = last.step if kind_name(self.engine.phase) == "DECIDING" and last is not None else nxt
-        return tuple(step.die) if step is not None else None
+        return step.die if step is not None else None
 
     def shown_position(self) -> tuple[Any, str] | None:
         last = self.engine.last_outcome
@@ -358,10 +360,10 @@ class Probe(BenchScreen):
             return
         self._map_key = key
         self.query_one("#map", DieMap).update_state(engine.wafer_status, current,
-                                                    cal_die=cal_die_of(self.app.journal_events),
+                                                    cal_die=cal_die_of(host(self.app).journal_events),
                                                     flagged=kept_despite_fail(engine.state))
 
-    def journal_grew(self, events_: list[dict]) -> None:
+    def journal_grew(self, events_: list[ev.Event]) -> None:
         super().journal_grew(events_)
         decided = sum(1 for e in events_ if type_of(e) in ("decision", "die-skipped"))
         if decided:

@@ -11,6 +11,7 @@ metric, the four shades ``░▒▓█`` run from the lowest to the highest valu
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 
 from rich.text import Text
 from textual.binding import Binding
@@ -29,6 +30,10 @@ STATUS_STYLE = {"todo": "grey50", "partial": "bold cyan", "done": "bold green", 
 SHADES = "░▒▓█"
 SHADE_STYLE = ("blue", "cyan", "yellow", "bold red")
 OUTLINE = "•"
+
+
+def _die(d: Sequence[int]) -> Die:
+    return int(d[0]), int(d[1])
 
 
 def shade_index(value: float, lo: float, hi: float) -> int:
@@ -99,11 +104,13 @@ class DieMap(Widget, can_focus=True):
                      flagged: set[Die] | None = None) -> None:
         """New statuses (die -> todo/partial/done/failed/skipped), the die under the
         probes, the calibration die, the dies with a landing kept despite a FAIL."""
-        resized = set(self.status) != {tuple(d) for d in status}
-        self.status = {tuple(d): s for d, s in status.items()}
-        self.current = tuple(current) if current is not None else None
+        # (column, row) pairs as tuples whatever sequence they came as (a journal gives lists)
+        fresh = {_die(d): s for d, s in status.items()}
+        resized = set(self.status) != set(fresh)
+        self.status = fresh
+        self.current = _die(current) if current is not None else None
         if cal_die is not None:
-            self.cal_die = tuple(cal_die)
+            self.cal_die = _die(cal_die)
         if flagged is not None:
             self.flagged = set(flagged)
         if self.cursor is None and self.status:
