@@ -8,7 +8,8 @@ from typing import Any, Mapping
 
 import numpy as np
 
-KINDS = ("open", "short", "load", "thru", "line", "open-stub", "short-stub", "device")
+from probelog.plan_types import KINDS as KINDS  # re-exported; one list of site kinds: the plan validates them, the checks dispatch on them
+
 REFLECT_KINDS = frozenset({"open", "short", "load", "open-stub", "short-stub"})
 ROTATING_KINDS = frozenset({"open", "short", "open-stub", "short-stub"})
 CHECK_NAMES = (
