@@ -25,6 +25,7 @@ import threading
 import time
 import warnings
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import skrf
@@ -154,6 +155,18 @@ class FolderVna:
             check_power(settings, self._power_limit_dbm)
         return None
 
+    def switch_terms(self) -> None:
+        """None: a saved .s2p file carries corrected or raw S only, not the
+        instrument's switch terms, so the calibration solves without them."""
+        return None
+
+    def reopen(self) -> None:
+        """Check the watched folder is there again (a network share that dropped
+        is the folder's "lost link"); files seen or archived so far stay seen, so
+        no sweep is taken twice. Raises FileNotFoundError while it is missing."""
+        if not self.folder.is_dir():
+            raise FileNotFoundError(f"{self.folder}: watched folder does not exist")
+
     def close(self) -> None:
         self.cancel.set()
 
@@ -181,3 +194,10 @@ class FolderVna:
                     f"{self.folder}: no new .s1p/.s2p file within {self.timeout_s:g} s", resource=str(self.folder)
                 )
             self.cancel.wait(self.poll_s)
+
+
+if TYPE_CHECKING:  # FolderVna is a probelog.bench.Vna, every member (checked by mypy, costs nothing at run time)
+    from probelog.bench import Vna
+
+    def _folder_vna_is_a_vna(vna: FolderVna) -> Vna:
+        return vna

@@ -27,7 +27,7 @@ from __future__ import annotations
 import time
 from abc import ABC, abstractmethod
 from pathlib import Path
-from typing import Callable, Sequence
+from typing import TYPE_CHECKING, Callable, Sequence
 
 from probelog.drivers.dialect import Dialect, load_dialect
 from probelog.drivers.errors import DriverError, InterlockError, OperatorDeclined, ReplyError
@@ -252,3 +252,13 @@ class ScpiProber(InterlockedProber):
 
     def close(self) -> None:
         self.link.close()
+
+
+if TYPE_CHECKING:  # both probers are a probelog.bench.Prober (checked by mypy, costs nothing at run time)
+    from probelog.bench import Prober
+
+    def _manual_prober_is_a_prober(prober: ManualProber) -> Prober:
+        return prober
+
+    def _scpi_prober_is_a_prober(prober: ScpiProber) -> Prober:
+        return prober

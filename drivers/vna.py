@@ -26,6 +26,7 @@ PowerLimitError (raised before anything is sent), SettingMismatch. After a trans
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import skrf
@@ -326,3 +327,10 @@ class ScpiVna:
                 raise ReplyError(f"{self.resource}: {cmd!r} returned {f.size} frequencies that do not increase")
             return f
         return np.linspace(s.start_hz, s.stop_hz, s.points)
+
+
+if TYPE_CHECKING:  # ScpiVna is a probelog.bench.Vna, every member (checked by mypy, costs nothing at run time)
+    from probelog.bench import Vna
+
+    def _scpi_vna_is_a_vna(vna: ScpiVna) -> Vna:
+        return vna

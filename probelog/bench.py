@@ -78,6 +78,19 @@ class Vna(Protocol):
         sweep. Must refuse power above the configured limit. None when this VNA
         cannot sweep on its own (the operator saves each file): no pre-check."""
 
+    def switch_terms(self) -> tuple[skrf.Network, skrf.Network] | None:
+        """Switch terms (gamma_f = a2/b2 with port 1 driving, gamma_r = a1/b1 with
+        port 2 driving) of the last 2-port sweep, as two 1-port Networks on its
+        frequencies (Hz). The engine asks right after a thru or line standard.
+        None when this VNA cannot report them (the calibration then solves
+        without them)."""
+
+    def reopen(self) -> None:
+        """Make the instrument usable again after a failure (timeout, dropped
+        link, garbled reply): open the connection anew and re-apply the settings
+        last given to :meth:`configure`. The engine calls it before the first
+        command after a VNA error."""
+
     def close(self) -> None: ...
 
 
@@ -110,13 +123,16 @@ class Prober(Protocol):
 
 @dataclass
 class Bench:
-    """The instruments of one session, wired by the command line or a test."""
+    """The instruments of one session, wired by the command line or a test.
+
+    ``kind`` is the command line's ``--bench`` word (``sim`` or ``visa``; empty
+    for a bench a test or a script wires), journaled with ``session-opened``."""
 
     vna: Vna
     prober: Prober
     description: str = ""
     on_close: list[Callable[[], None]] = field(default_factory=list)
-    kind: str = ""  # the command line's --bench word (sim or visa), journaled with session-opened
+    kind: str = ""
 
     def close(self) -> None:
         for closer in (self.vna.close, self.prober.close, *self.on_close):

@@ -181,6 +181,7 @@ class FakeVna:
         self.faults: dict[tuple, list[str]] = {}
         self.sweeps = 0
         self.prechecks = 0
+        self.reopens = 0
         self.drift_db = 0.0
 
     def identify(self):
@@ -220,6 +221,14 @@ class FakeVna:
             return self.sweep(ports)
         finally:
             self.settings = base
+
+    def switch_terms(self):
+        """None: the fake's sweeps are ideal structures without an error model."""
+        return None
+
+    def reopen(self):
+        """Counted: the engine reopens the VNA after a VNA error, before the next command."""
+        self.reopens += 1
 
     def close(self):
         pass

@@ -109,11 +109,10 @@ class CalStep(EngineCore):
         """Fetch and store the VNA's switch terms right after a transmissive standard
         (they belong to the instrument; any reciprocal 2-port reveals them, Marks,
         50th ARFTG 1997). None when the VNA does not offer them."""
-        fetch = getattr(self.bench.vna, "switch_terms", None)
-        if raw.nports != 2 or site.kind not in ("thru", "line") or not callable(fetch):
+        if raw.nports != 2 or site.kind not in ("thru", "line"):
             return None
         try:
-            terms = fetch()
+            terms = self.bench.vna.switch_terms()
         except Exception as exc:
             self._instrument_failed("vna", exc)
         if terms is None:

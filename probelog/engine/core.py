@@ -138,9 +138,8 @@ class EngineCore:
         if self._configured:
             return
         try:
-            reopen = getattr(self.bench.vna, "reopen", None)  # optional: drivers with a link to reset
-            if self._reopen_vna and callable(reopen):
-                reopen()  # a stale reply left in the link would shift every answer
+            if self._reopen_vna:
+                self.bench.vna.reopen()  # a stale reply left in the link would shift every answer
             self._reopen_vna = False
             self.bench.vna.configure(self.plan.settings, float(self.plan.power_limit_dbm))
         except Exception as exc:

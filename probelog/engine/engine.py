@@ -310,7 +310,7 @@ class Engine(Policy):
 
     def _open_session(self) -> None:
         plan, s = self.plan, self.plan.settings
-        bench_info = {"kind": getattr(self.bench, "kind", "") or "", "description": self.bench.description}
+        bench_info = {"kind": self.bench.kind, "description": self.bench.description}
         for key, inst in (("vna_idn", self.bench.vna), ("prober_idn", self.bench.prober)):
             try:
                 bench_info[key] = inst.identify()
