@@ -110,7 +110,9 @@ def test_instrument_error_is_journaled_and_measure_can_be_retried(tmp_path):
     assert last.type == "instrument-error" and last.payload["error"] == "TimeoutError"
     assert not bench.prober.in_contact  # separated after the failure
     assert engine.next_step == step and engine.phase is S.Phase.PROBING
+    assert bench.vna.reopens == 0  # nothing reopened until the next command
     assert engine.measure().step.landing == 1
+    assert bench.vna.reopens == 1  # the link is reset before the VNA is used again
     assert any(isinstance(e, S.InstrumentFailed) for e in events)
 
 
@@ -154,3 +156,40 @@ def test_a_note_goes_to_the_site_the_operator_names_else_where_the_engine_stands
     assert [(n["site"], n["text"]) for n in notes] == [(out.step.site, "scratch across the pad"),
                                                        ("ln-b", "about the next one")]
     assert notes[0]["die"] == list(out.step.die)
+
+
+def test_a_reland_goes_before_a_drift_re_measure_that_fell_due(tmp_path):
+    """``r`` after a FAIL lands on the same site again; the re-measure the cadence
+    asks for comes before the next new site (issue #12: it came first and the
+    operator saw a drift PASS for another site)."""
+    engine, bench, journal, _ = make(tmp_path, drift_every=2)
+    calibrate(engine)
+    engine.measure()  # the drift reference right after the cal
+    engine.measure()
+    engine.accept()
+    bench.vna.faults[((1, 1), "ln-b")] = ["lifted"]
+    out = engine.measure()  # second landing since the reference: a re-measure is due
+    assert out.verdict is Verdict.FAIL and out.step.site == "ln-b"
+    engine.reland("tip lifted")
+    step = engine.next_step
+    assert (step.kind, step.site, step.landing) == (S.StepKind.SITE, "ln-b", 2)
+    again = engine.measure()
+    assert again.step.site == "ln-b" and again.verdict is Verdict.PASS
+    engine.accept()
+    assert engine.next_step.kind is S.StepKind.DRIFT  # the due re-measure, before dev-ind
+    engine.measure()
+    assert engine.next_step.site == "dev-ind"
+
+
+def test_a_requested_drift_re_measure_still_goes_before_a_reland(tmp_path):
+    """The operator's own ``request_drift()`` is not postponed: only the cadence waits."""
+    engine, bench, journal, _ = make(tmp_path, drift_every=50)
+    calibrate(engine)
+    engine.measure()  # the reference
+    engine.measure()
+    engine.reland()
+    assert engine.next_step.kind is S.StepKind.SITE
+    engine.request_drift()
+    assert engine.next_step.kind is S.StepKind.DRIFT
+    engine.measure()
+    assert (engine.next_step.site, engine.next_step.landing) == ("ln-a", 2)

@@ -29,11 +29,30 @@ class Walk(CalStep, PrecheckStep):
         if self._phase is not Phase.PROBING:
             return None
         s = self.state
+        site_step = self._site_step()
         drift_site = self.view.drift_site()
-        if drift_site and s.active is not None and (s.ref_wanted or self._drift_due()):
+        # A re-land goes straight back to its site: a drift re-measure that fell
+        # due by count waits for the next new site (the tips are lifted already,
+        # and the operator asked for that very site).
+        due = s.ref_wanted or self._drift_requested or (self._drift_due() and not self._relanding(site_step))
+        if drift_site and s.active is not None and due:
             die = self.view.drift_die()
             return Step(StepKind.DRIFT, die, drift_site, self.view.site(drift_site).kind,
                         s.landing_count(die, drift_site) + 1, 0, 1)
+        return site_step
+
+    def _relanding(self, step: Step | None) -> bool:
+        """True when ``step`` re-lands its site: the site's last decision is a
+        re-land of its latest landing (so also after a resume)."""
+        if step is None:
+            return False
+        rec = self.state.site(step.die, step.site)
+        last = rec.decisions[-1] if rec.decisions else None
+        return last is not None and last.action == ev.RELAND and last.landing == rec.count
+
+    def _site_step(self) -> Step | None:
+        """The next undecided site in sequence order from the walk's start."""
+        s = self.state
         seq = self.view.sequence
         n = len(seq)
         start = self.view.die_start(s.walk_die) if s.walk_die is not None else 0
@@ -55,7 +74,7 @@ class Walk(CalStep, PrecheckStep):
 
     def _drift_due(self) -> bool:
         every = self.view.drift_every()
-        return self._drift_requested or bool(every and self.state.since_drift >= every)
+        return bool(every and self.state.since_drift >= every)
 
     def request_drift(self) -> None:
         """Make the next ``measure()`` re-measure the drift reference."""

@@ -156,3 +156,58 @@ def test_real_engine_on_the_simulated_bench(tmp_path):
     for p in landings:
         ref = p.get("corrected") or p["raw"]  # a failed pre-check keeps its raw short sweep
         assert hashlib.sha256((session / ref["path"]).read_bytes()).hexdigest() == ref["sha256"]
+
+
+def test_reland_after_a_fail_goes_before_a_due_drift_check(tmp_path):
+    """``r`` after a FAIL re-lands that site even when the plan's drift cadence has
+    fallen due (issue #12: the screen showed the drift reference's PASS first);
+    the re-measure comes before the next new site. The UI only asks the engine."""
+    import asyncio
+
+    from probelog.plan import load_plan
+    from probelog.session import Engine
+    from probelog.tui.benches import build_bench
+
+    path = reduced_plan(tmp_path)
+    path.write_text(path.read_text().replace("drift_every_landings = 40", "drift_every_landings = 1"))
+    plan = load_plan(str(path))
+    first_die = plan.dies_in_order()[0]
+    opts = argparse.Namespace(bench="sim", vna=None, vna_dialect="generic-vna", prober=None,
+                              prober_dialect="generic-prober", watch_folder=None, seed=11,
+                              fault=[f"lifted-1@{first_die[0]},{first_die[1]}:{SITES[0]}"], fault_rate=0.0)
+
+    def factory():
+        bench = build_bench(opts, plan.probes.ids)
+        try:
+            return Engine.new(plan, bench, tmp_path / "sessions", operator="ana", session_id="QF2611-W07-rl")
+        except BaseException:
+            bench.close()
+            raise
+
+    async def go():
+        app = build_app(factory, show_cautions=False)
+        async with app.run_test(size=(120, 40)) as pilot:
+            await settle(pilot, "open")
+            for _ in plan.calibration.standards:
+                await press(pilot, "space")
+            await press(pilot, "k")
+            await press(pilot, "a")
+            await press(pilot, "space")  # the drift reference right after the cal
+            assert "drift reference" in board_text(app)
+            await press(pilot, "space")  # the lifted tip: FAIL, and a re-measure is due now
+            assert "✖ FAIL" in board_text(app)
+            await press(pilot, "r")
+            shown = board_text(app)
+            assert "drift reference" not in shown and f"{SITES[0]}" in shown and "landing 2" in shown, shown
+            await press(pilot, "a")
+            await press(pilot, "space")  # the next new site: the due re-measure first
+            assert "drift reference" in board_text(app), board_text(app)
+            await quit_session(pilot)
+
+    asyncio.run(go())
+    events = journal(tmp_path / "sessions" / "QF2611-W07-rl")
+    measured = [(e["type"], e["payload"]["site"], e["payload"]["landing"]) for e in events
+                if e["type"] in ("landing", "precheck", "drift")]
+    n = measured[0][2]  # the thru's landings go on from its landing as a cal standard
+    assert measured[:4] == [("drift", "cal-thru", n), ("precheck", SITES[0], 1), ("landing", SITES[0], 2),
+                            ("drift", "cal-thru", n + 1)], measured

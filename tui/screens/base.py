@@ -74,12 +74,7 @@ class BenchScreen(Screen):
         engine = self.engine
         if before == "reland":
             engine.reland()
-            self.post_message(DecisionRecorded("reland"))
-            nxt = engine.next_step
-            if nxt is not None and kind_name(nxt.kind) == "DRIFT":
-                # the engine put a due drift re-measure before the re-land: measure it
-                # (shown as the reference), then the site the operator asked for
-                self._measure_one(engine)
+            self.post_message(DecisionRecorded("reland"))  # the engine re-lands before a due drift check
         elif before == "drift":
             engine.request_drift()
         self._measure_one(engine)
