@@ -69,6 +69,7 @@ class SessionState(_S, frozen=True):
     since_drift: int = 0  # site landings since the last drift re-measure (or cal)
     ref_wanted: bool = False  # a drift reference is taken right after a cal is accepted
     recal_advised: str | None = None  # reason of an unanswered drift advice
+    line_figures: dict[Die, dict[str, ev.LineFigures]] = {}  # die -> line family -> its pad-free figures
     # counts (for summaries; kept as the events come, no walk over sites)
     n_landings: int = 0
     n_finished: int = 0
@@ -388,6 +389,12 @@ def _closed(s: SessionState, e: ev.Event, d: ev.SessionClosed) -> SessionState:
     return _replace(s, closed=d, phase=CLOSED)
 
 
+def _line_figures(s: SessionState, e: ev.Event, d: ev.LineFigures) -> SessionState:
+    # one event per die and line family; a later one (never written twice by the engine) wins
+    by_family = {**s.line_figures.get(d.die, {}), d.family: d}
+    return _replace(s, line_figures={**s.line_figures, d.die: by_family})
+
+
 def _same(s: SessionState, e: ev.Event, d: Any) -> SessionState:
     return s
 
@@ -399,6 +406,6 @@ _HANDLERS: dict[type, Any] = {
     ev.RecalRequested: _recal_requested, ev.Landing: _landing, ev.Drift: _drift, ev.Decision: _decision,
     ev.DieSkipped: _die_skipped, ev.Note: _note, ev.Goto: _goto, ev.InstrumentError: _instrument_error,
     ev.Recovered: _recovered, ev.SessionClosed: _closed,
-    ev.LineFigures: _same,  # derived figures on record; nothing in the walk depends on them
+    ev.LineFigures: _line_figures,
     ev.Precheck: _precheck,
 }

@@ -145,6 +145,24 @@ def test_a_schema_1_plain_accept_of_a_fail_reads_as_accepted_despite_fail():
     assert st.fold([land, accept]).n_accepted_despite_fail == 1 and st.fold([ok, accept]).n_accepted == 1
 
 
+def test_line_figures_are_read_into_the_state_by_die_and_family():
+    """``line-figures`` events (the die's pad-free figures) were read and dropped;
+    the state keeps each die's figures by line family, the later one winning."""
+    def figs(die, family, eps):
+        return ev.LineFigures(die=die, family=family, site_a="ln-a", site_b="ln-b", length_a_um=500.0,
+                              length_b_um=1500.0, metrics={"f_hz": [4e10], "eps_eff": [eps]})
+
+    a, b, c = figs((1, 1), "cpw/M9/10x6um", 6.6), figs((1, 1), "ms/M1/8um", 3.1), figs((2, 1), "cpw/M9/10x6um", 6.7)
+    s = st.fold(ev.Event(i + 1, "t", d) for i, d in enumerate((a, b, c)))
+    assert s.line_figures == {(1, 1): {"cpw/M9/10x6um": a, "ms/M1/8um": b}, (2, 1): {"cpw/M9/10x6um": c}}
+    assert s.unknown == 0
+    again = figs((1, 1), "cpw/M9/10x6um", 6.5)
+    s2 = st.apply(s, ev.Event(4, "t", again))
+    assert s2.line_figures[(1, 1)]["cpw/M9/10x6um"].metrics["eps_eff"] == [6.5]
+    assert s.line_figures[(1, 1)]["cpw/M9/10x6um"] is a  # copy-on-write: the earlier state is unchanged
+    assert st.fold([]).line_figures == {}
+
+
 def test_metric_at_a_chosen_frequency_from_the_journaled_lists(tmp_path):
     """The engine journals line metrics as per-frequency lists; the map reads one value."""
     e, _ = start(tmp_path, sites=("ln-b",))

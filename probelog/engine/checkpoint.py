@@ -33,7 +33,7 @@ class _Snapshot(msgspec.Struct, frozen=True):
     state: st.SessionState
 
 
-_VERSION = 1
+_VERSION = 2  # 2: the state holds line figures (a version-1 snapshot would lack those before it)
 _ENCODER = msgspec.msgpack.Encoder()
 _DECODER = msgspec.msgpack.Decoder(_Snapshot)
 

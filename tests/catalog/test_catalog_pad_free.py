@@ -127,6 +127,13 @@ def test_the_engine_journals_each_dies_figures_after_its_last_decision(demo_sess
         assert later == []  # written after the die's last decision
     rec = read_session(demo_sessions[0])
     cat = {(r["die_col"], r["die_row"], r["f_hz"]): r["eps_eff"] for r in rec.line_figures}
+    from probelog.manifest import read_journal
+
+    state = read_journal(demo_sessions[0]).state  # the events read back into the session state
+    held = {(die, fam): f for die, by_family in state.line_figures.items() for fam, f in by_family.items()}
+    assert {(tuple(e["payload"]["die"]), e["payload"]["family"]) for _i, e in figs} == set(held)
+    for _i, e in figs:
+        assert held[(tuple(e["payload"]["die"]), e["payload"]["family"])].metrics == e["payload"]["metrics"]
     for _i, e in figs:
         p = e["payload"]
         for f, eps in zip(p["metrics"]["f_hz"], p["metrics"]["eps_eff"], strict=True):
