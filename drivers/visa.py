@@ -1,4 +1,7 @@
-"""Opening VISA resources, SCPI helpers, and IEEE 488.2 arbitrary blocks.
+"""Opening VISA resources and the SCPI link on them (:class:`Link`): commands,
+queries, the error queue, IEEE 488.2 arbitrary blocks. The reply formats are
+:mod:`probelog.drivers.blocks` (pure functions); reading by exact byte count and
+the translation of I/O errors are :mod:`probelog.drivers.visa_io`.
 
 Resource strings are written as VISA defines them, e.g.
 ``TCPIP0::10.0.0.5::inst0::INSTR`` (VXI-11), ``TCPIP::host::5025::SOCKET``
@@ -33,192 +36,28 @@ exception whose message says which of the two happened.
 
 from __future__ import annotations
 
-import errno
-import re
-import socket
-from contextlib import contextmanager
-from dataclasses import dataclass
-from typing import Any, Iterator, cast
+from typing import cast
 
 import numpy as np
 import pyvisa
-from pyvisa import constants
 from pyvisa.errors import VisaIOError
 from pyvisa.resources import MessageBasedResource
 
+from probelog.drivers.blocks import DIGITS, float64_from_block, floats_from_ascii, parse_block_header, parse_error_reply
 from probelog.drivers.errors import (
     BadResourceName,
-    ConnectionLost,
     DriverError,
     InstrumentError,
     InstrumentTimeout,
     InstrumentUnreachable,
     MalformedBlock,
-    ReplyError,
-    ShortBlock,
-    TransportError,
 )
+from probelog.drivers.visa_io import LinkSettings, RawLink, translate_os_error, translate_visa_error
+
+__all__ = ["BACKEND_ALIASES", "Link", "LinkSettings", "check_resource_name", "normalise_backend", "open_resource"]
 
 BACKEND_ALIASES = {"py": "@py", "pyvisa-py": "@py", "ni": "@ivi", "ivi": "@ivi", "sim": "@sim"}
-
-_DIGITS = frozenset(b"0123456789")
-
-
-# --------------------------------------------------------------------------- blocks
-
-
-def encode_block(payload: bytes) -> bytes:
-    """Wrap ``payload`` in a definite-length IEEE 488.2 block (no terminator)."""
-    count = str(len(payload)).encode("ascii")
-    if len(count) > 9:
-        raise ValueError(f"payload of {len(payload)} bytes is too large for a definite block")
-    return b"#" + str(len(count)).encode("ascii") + count + bytes(payload)
-
-
-def parse_block_header(data: bytes) -> tuple[int, int | None]:
-    """Parse the start of an arbitrary block.
-
-    Returns (header length in bytes, payload byte count), the count being None
-    for the indefinite form ``#0``. Raises :class:`MalformedBlock` when ``data``
-    does not start with a complete, valid header.
-    """
-    if len(data) < 2:
-        raise MalformedBlock(f"block header truncated: got {bytes(data[:2])!r}, need '#' and a digit")
-    if data[0:1] != b"#":
-        raise MalformedBlock(f"block must start with '#', got {bytes(data[:12])!r}")
-    if data[1] not in _DIGITS:
-        raise MalformedBlock(f"block header digit must be 0-9, got {bytes(data[1:2])!r}")
-    n = data[1] - 0x30
-    if n == 0:
-        return 2, None
-    digits = bytes(data[2 : 2 + n])
-    if len(digits) < n:
-        raise MalformedBlock(f"block header '#{n}' announces {n} length digits, got {digits!r}")
-    # int() would accept spaces, '_' and non-ASCII digits: check byte by byte.
-    if not all(c in _DIGITS for c in digits):
-        raise MalformedBlock(f"block length must be {n} ASCII digits, got {digits!r}")
-    return 2 + n, int(digits)
-
-
-def decode_block(data: bytes) -> bytes:
-    """Payload of a complete IEEE 488.2 block, definite or indefinite.
-
-    A trailing LF or CR LF terminator is accepted; other bytes after a definite
-    block, or fewer bytes than announced, raise :class:`MalformedBlock`
-    (:class:`ShortBlock` for the latter).
-    """
-    data = bytes(data)
-    head, count = parse_block_header(data)
-    if count is None:
-        body = data[head:]
-        return body[:-1] if body.endswith(b"\n") else body
-    payload = data[head : head + count]
-    if len(payload) < count:
-        raise ShortBlock(
-            f"block announces {count} bytes but only {len(payload)} follow the header",
-            expected=count,
-            received=len(payload),
-        )
-    tail = data[head + count :]
-    if tail not in (b"", b"\n", b"\r\n"):
-        raise MalformedBlock(f"{len(tail)} unexpected bytes after a {count}-byte block: {tail[:12]!r}")
-    return payload
-
-
-def float64_from_block(payload: bytes, byte_order: str) -> np.ndarray:
-    """REAL,64 payload as float64; ``byte_order`` is "little" or "big"."""
-    if len(payload) % 8:
-        raise MalformedBlock(f"REAL,64 block of {len(payload)} bytes is not a multiple of 8")
-    return np.frombuffer(payload, dtype="<f8" if byte_order == "little" else ">f8").copy()
-
-
-def floats_from_ascii(text: str) -> np.ndarray:
-    """Comma-separated ASCII numbers (SCPI ``FORMat:DATA ASCii``) as float64."""
-    parts = [p.strip() for p in text.strip().split(",")]
-    try:
-        return np.array([float(p) for p in parts], dtype=float)
-    except ValueError:
-        bad = next(p for p in parts if not _is_float(p))
-        raise ReplyError(f"ASCII data reply has a non-number {bad!r} in {text[:60]!r}") from None
-
-
-def _is_float(text: str) -> bool:
-    try:
-        float(text)
-    except ValueError:
-        return False
-    return True
-
-
-# --------------------------------------------------------------------------- errors
-
-
-_ERROR_REPLY = re.compile(r'^\s*([+-]?\d+)\s*(?:,\s*"?(.*?)"?)?\s*$', re.S)
-
-
-def parse_error_reply(reply: str) -> tuple[int, str]:
-    """``SYSTem:ERRor:NEXT?`` reply ``-222,"Data out of range"`` -> (code, message)."""
-    m = _ERROR_REPLY.match(reply)
-    if not m:
-        raise ReplyError(f"error-queue reply {reply!r} is not of the form <code>,\"<message>\"")
-    return int(m.group(1)), (m.group(2) or "").strip()
-
-
-def _translate_os_error(exc: OSError, what: str, resource: str) -> TransportError:
-    name = type(exc).__name__
-    code = getattr(exc, "errno", None)
-    if isinstance(exc, ConnectionRefusedError) or code in (
-        errno.ECONNREFUSED,
-        errno.EHOSTUNREACH,
-        errno.ENETUNREACH,
-    ):
-        return InstrumentUnreachable(
-            f"{resource}: nothing answers there ({what}; OSError {name}: {exc}). "
-            "Is the instrument on, the address and port right, remote control enabled?",
-            resource=resource,
-            cause="OSError",
-        )
-    if isinstance(exc, TimeoutError):
-        return InstrumentTimeout(
-            f"{resource}: timed out {what} (OSError {name})", resource=resource, cause="OSError"
-        )
-    return ConnectionLost(
-        f"{resource}: the connection dropped {what} (OSError {name}: {exc}); reopen it",
-        resource=resource,
-        cause="OSError",
-    )
-
-
-def _translate_visa_error(exc: VisaIOError, what: str, resource: str, timeout_ms: int) -> TransportError:
-    code = exc.error_code
-    label = f"VisaIOError {exc.abbreviation}"
-    if code == constants.StatusCode.error_timeout:
-        return InstrumentTimeout(
-            f"{resource}: no reply within {timeout_ms} ms {what} ({label})",
-            resource=resource,
-            cause="VisaIOError",
-        )
-    if code == constants.StatusCode.error_resource_not_found:
-        return InstrumentUnreachable(
-            f"{resource}: resource not found {what} ({label})", resource=resource, cause="VisaIOError"
-        )
-    return ConnectionLost(
-        f"{resource}: I/O failed {what} ({label}: {exc.description}); reopen it",
-        resource=resource,
-        cause="VisaIOError",
-    )
-
-
-# --------------------------------------------------------------------------- link
-
-
-@dataclass(frozen=True)
-class LinkSettings:
-    """How to open a resource: terminations as Python strings, timeout in ms."""
-
-    read_termination: str = "\n"
-    write_termination: str = "\n"
-    timeout_ms: int = 10000
+DEFAULT_SETTINGS = LinkSettings()  # LF terminations, 10 s timeout (frozen: one shared default)
 
 
 def normalise_backend(backend: str | None) -> str:
@@ -253,7 +92,7 @@ def check_resource_name(resource: str) -> str:
 def open_resource(
     resource: str,
     backend: str | None = "@py",
-    settings: LinkSettings = LinkSettings(),
+    settings: LinkSettings = DEFAULT_SETTINGS,
     *,
     error_query: str | None = None,
 ) -> "Link":
@@ -270,22 +109,12 @@ def open_resource(
     return link
 
 
-class Link:
+class Link(RawLink):
     """One open VISA resource speaking SCPI text plus IEEE 488.2 blocks.
 
     Every method raises only :mod:`probelog.drivers.errors` exceptions for I/O failures.
     After a :class:`TransportError` call :meth:`reopen`.
     """
-
-    def __init__(self, resource: str, backend: str, settings: LinkSettings, error_query: str | None):
-        self.resource = resource
-        self.backend = backend
-        self.settings = settings
-        self.error_query = error_query
-        # Read block payloads straight from pyvisa-py's socket (fast, sees a
-        # closed peer at once); False forces the generic VISA read loop.
-        self.direct_socket = True
-        self._res: MessageBasedResource | None = None
 
     # -- lifecycle
 
@@ -302,9 +131,9 @@ class Link:
             # every resource a probelog dialect talks to is message based (SOCKET, INSTR, GPIB, ASRL)
             res = cast(MessageBasedResource, rm.open_resource(self.resource))
         except VisaIOError as exc:
-            raise _translate_visa_error(exc, "while opening", self.resource, self.settings.timeout_ms) from None
+            raise translate_visa_error(exc, "while opening", self.resource, self.settings.timeout_ms) from None
         except OSError as exc:
-            raise _translate_os_error(exc, "while opening", self.resource) from None
+            raise translate_os_error(exc, "while opening", self.resource) from None
         except Exception as exc:  # pyvisa-py raises bare Exception("could not connect: ...")
             raise InstrumentUnreachable(
                 f"{self.resource}: could not open ({type(exc).__name__}: {exc})",
@@ -338,20 +167,6 @@ class Link:
     def visa_resource(self) -> MessageBasedResource:
         """The underlying pyvisa resource (for tests and measurements)."""
         return self._require()
-
-    def _require(self) -> MessageBasedResource:
-        if self._res is None:
-            raise ConnectionLost(f"{self.resource}: the link is closed; reopen it", resource=self.resource)
-        return self._res
-
-    @contextmanager
-    def _io(self, what: str) -> Iterator[None]:
-        try:
-            yield
-        except VisaIOError as exc:
-            raise _translate_visa_error(exc, what, self.resource, self.settings.timeout_ms) from None
-        except OSError as exc:
-            raise _translate_os_error(exc, what, self.resource) from None
 
     # -- text
 
@@ -448,7 +263,7 @@ class Link:
             # Indefinite form: ends at NL with END; only safe for text payloads.
             return self._read_line(command)
         head = b"#" + digit
-        if digit[0] not in _DIGITS:
+        if digit[0] not in DIGITS:
             raise MalformedBlock(
                 f"{self.resource}: reply to {command!r} starts with {head!r}, not a block header",
                 resource=self.resource,
@@ -470,112 +285,3 @@ class Link:
                     resource=self.resource,
                 )
         return payload
-
-    def _socket_session(self) -> Any:
-        """pyvisa-py's TCPIP SOCKET session object, or None for other backends
-        (Any: a private, untyped pyvisa-py class, recognised by its attributes)."""
-        res = self._require()
-        if not self.direct_socket:
-            return None
-        sess = getattr(res.visalib, "sessions", {}).get(res.session)
-        if sess is None or not hasattr(sess, "_pending_buffer") or not isinstance(
-            getattr(sess, "interface", None), socket.socket
-        ):
-            return None
-        return sess
-
-    def _read_exact(self, count: int, command: str, total: int | None) -> bytes:
-        """Exactly ``count`` bytes, termination ignored. ``total`` (the block's
-        payload size) turns a stall after some bytes into :class:`ShortBlock`."""
-        if count == 0:
-            return b""
-        sess = self._socket_session()
-        if sess is not None:
-            return self._read_exact_socket(sess, count, command, total)
-        return self._read_exact_visa(count, command, total)
-
-    def _short_or_timeout(self, got: int, count: int, command: str, total: int | None, cause: str) -> ShortBlock | InstrumentTimeout:
-        if total is not None and got > 0:
-            return ShortBlock(
-                f"{self.resource}: block from {command!r} announced {count} bytes, "
-                f"{got} arrived before the {self.settings.timeout_ms} ms timeout ({cause})",
-                expected=count,
-                received=got,
-                resource=self.resource,
-            )
-        return InstrumentTimeout(
-            f"{self.resource}: no reply within {self.settings.timeout_ms} ms waiting for "
-            f"data of {command!r} ({cause})",
-            resource=self.resource,
-            cause=cause,
-        )
-
-    def _read_exact_socket(self, sess: Any, count: int, command: str, total: int | None) -> bytes:
-        buf = bytearray(count)
-        pending = sess._pending_buffer
-        got = min(len(pending), count)
-        buf[:got] = pending[:got]
-        del pending[:got]
-        view = memoryview(buf)
-        sock: socket.socket = sess.interface
-        old = sock.gettimeout()
-        sock.settimeout(self.settings.timeout_ms / 1000.0)  # idle timeout per recv
-        try:
-            while got < count:
-                try:
-                    n = sock.recv_into(view[got:], count - got)
-                except (socket.timeout, TimeoutError):
-                    raise self._short_or_timeout(got, count, command, total, "socket") from None
-                except OSError as exc:
-                    raise _translate_os_error(exc, f"reading data of {command!r}", self.resource) from None
-                if n == 0:
-                    raise ConnectionLost(
-                        f"{self.resource}: the instrument closed the connection after "
-                        f"{got} of {count} bytes of the reply to {command!r} (socket); reopen it",
-                        resource=self.resource,
-                        cause="socket",
-                    )
-                got += n
-        finally:
-            try:
-                sock.settimeout(old)
-            except OSError:  # socket already closed
-                pass
-        return bytes(buf)
-
-    def _read_exact_visa(self, count: int, command: str, total: int | None) -> bytes:
-        res = self._require()
-        out = bytearray()
-        old_term = res.read_termination
-        res.read_termination = None
-        try:
-            # A read that fills the requested count is the normal case here, not news.
-            with res.ignore_warning(constants.StatusCode.success_max_count_read):
-                self._visa_loop(res, out, count, command, total)
-        finally:
-            if self._res is not None:
-                res.read_termination = old_term
-        return bytes(out)
-
-    def _visa_loop(self, res: MessageBasedResource, out: bytearray, count: int, command: str, total: int | None) -> None:
-        while len(out) < count:
-            try:
-                chunk, _status = res.visalib.read(res.session, min(count - len(out), res.chunk_size))
-            except VisaIOError as exc:
-                if exc.error_code == constants.StatusCode.error_timeout:
-                    raise self._short_or_timeout(len(out), count, command, total, "VisaIOError") from None
-                raise _translate_visa_error(
-                    exc, f"reading data of {command!r}", self.resource, self.settings.timeout_ms
-                ) from None
-            except OSError as exc:
-                raise _translate_os_error(exc, f"reading data of {command!r}", self.resource) from None
-            if not chunk:
-                raise self._short_or_timeout(len(out), count, command, total, "VisaIOError")
-            out.extend(chunk)
-
-    def _read_line(self, command: str) -> bytes:
-        """Rest of a reply up to the read termination (for ASCII data)."""
-        res = self._require()
-        with self._io(f"waiting for the reply to {command!r}"):
-            return res.read_raw()
-

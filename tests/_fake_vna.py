@@ -11,7 +11,7 @@ from typing import Callable
 import numpy as np
 import skrf
 
-from probelog.drivers.visa import encode_block
+from probelog.drivers.blocks import encode_block
 
 TIMEOUT_MS = 300
 

@@ -16,11 +16,10 @@ import skrf
 from skrf.calibration import terminate
 from skrf.media import DefinedGammaZ0
 
+from probelog.cal_verify import ccw_excursion_deg, group_delay_fit_s
 from probelog.calibration import (
     CalibrationError,
-    ccw_excursion_deg,
     comparable_methods,
-    group_delay_fit_s,
     load_calset,
     load_kit,
     required_sites,

@@ -14,7 +14,7 @@ from hypothesis.stateful import RuleBasedStateMachine, invariant, precondition, 
 from probelog.drivers.dialect import load_dialect
 from probelog.drivers.errors import DriverError, InterlockError, InstrumentError, OperatorDeclined, ReplyError
 from probelog.drivers.prober import ManualProber, ScpiProber
-from probelog.drivers.visa import parse_error_reply
+from probelog.drivers.blocks import parse_error_reply
 from probelog.bench import Prober
 
 PROBES = ("P1-GSG100", "P2-GSG100")

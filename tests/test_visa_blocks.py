@@ -11,7 +11,7 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from probelog.drivers.errors import MalformedBlock, ShortBlock
-from probelog.drivers.visa import (
+from probelog.drivers.blocks import (
     decode_block,
     encode_block,
     float64_from_block,

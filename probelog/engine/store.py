@@ -120,7 +120,7 @@ class Store:
 
     def calset(self, files: list[FileRef] | tuple[FileRef, ...], what: str) -> Any:
         """Load a saved cal set after checking every one of its files."""
-        from probelog.calibration import load_calset
+        from probelog.calset import load_calset
 
         if not files:
             raise StoreError(f"{self.root}: {what} has no saved files on record")
