@@ -101,6 +101,10 @@ def test_real_engine_on_the_simulated_bench(tmp_path):
             assert "✖ FAIL" in shown and f"die {first_die[0]},{first_die[1]} · {SITES[0]}" in shown, shown
             text = screen_text(app)
             assert "contact" in text and "port 1" in text, text
+            # a failed pre-check took no sweep: nothing to keep, so A is neither offered nor taken
+            assert "keep FAIL" not in text and "no sweep to keep" in text, text
+            await press(pilot, "A")
+            assert isinstance(app.screen, Probe) and "✖ FAIL" in board_text(app)
             await press(pilot, "r")  # re-land: the fault was for one landing
             shown = board_text(app)
             assert "✖ FAIL" not in shown and "landing 2" in shown, shown

@@ -50,6 +50,10 @@ _APPLIES = {
 _NEED_IDLE = set(_APPLIES) | {"note"}
 
 
+def _precheck(outcome: Any) -> bool:
+    return bool(getattr(outcome, "precheck", False))
+
+
 class Probe(BenchScreen):
     """The probing screen."""
 
@@ -145,6 +149,8 @@ class Probe(BenchScreen):
         if action in ("skip", "skip_die") and state == "probing":
             nxt = self.engine.next_step
             return True if nxt is not None and kind_name(nxt.kind) == "SITE" else False
+        if action == "keep_fail" and state == "fail" and _precheck(self.engine.last_outcome):
+            return False  # a failed contact pre-check took no sweep: nothing to keep (the engine refuses)
         return state in applies
 
     def action_land(self) -> None:

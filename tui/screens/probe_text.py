@@ -29,8 +29,9 @@ def where_parts(engine: EngineProtocol, state: str, busy: bool) -> tuple[str, st
         next_ = "[enter] retry (the link is reopened)  [s] skip site  [x] skip die"
     elif state in ("pass", "fail") and last is not None:
         here = f"{describe_step(last.step)} · {verdict_word(last.verdict)}"
-        next_ = ("[enter] re-land  [s] skip  [x] skip die  [A] keep FAIL (asks why)" if state == "fail"
-                 else "[enter] keep + next site  [a] keep  [r] re-land  [s] skip")
+        next_ = ("[enter] keep + next site  [a] keep  [r] re-land  [s] skip" if state != "fail" else
+                 "[enter] re-land  [s] skip  [x] skip die  (pre-check: no sweep to keep)" if last.precheck else
+                 "[enter] re-land  [s] skip  [x] skip die  [A] keep FAIL (asks why)")
     elif kind_name(engine.phase) == "DONE":
         here, next_ = "every site of the plan is decided", "[q] close the journal and quit"
     else:
