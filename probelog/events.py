@@ -111,6 +111,7 @@ class SessionOpened(_Record, frozen=True):
     probes: list[str] = []
     bench: dict[str, str] = {}  # kind, description, vna_idn, prober_idn
     settings: Settings = Settings()
+    golden_sha256: dict[str, str] = {}  # site name -> SHA-256 of its golden Touchstone file (resume re-checks)
 
 
 class SessionResumed(_Record, frozen=True):

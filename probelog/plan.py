@@ -25,7 +25,7 @@ from pathlib import Path
 
 from probelog.plan_fields import Table, check_keys, describe
 from probelog.plan_fields import text as text_field
-from probelog.plan_layout import read_precheck, read_sites, read_wafer
+from probelog.plan_layout import check_golden_span, read_precheck, read_sites, read_wafer
 from probelog.plan_procedure import read_calibration, read_limits, read_probes, read_sequence, read_vna
 from probelog.plan_toml import Ctx, PlanError, parse_toml, read_plan_file
 from probelog.plan_types import (
@@ -81,11 +81,12 @@ def _build(ctx: Ctx, raw: Table, text: str, base_dir: Path) -> Plan:
         raise ctx.error("plan.description", f"expected text, found {describe(description)}")
 
     wafer = read_wafer(ctx, raw)
-    sites = read_sites(ctx, raw, wafer)
+    sites = read_sites(ctx, raw, wafer, base_dir)
     by_name = {s.name: s for s in sites}
     sequence = read_sequence(ctx, raw, wafer, by_name)
     calibration = read_calibration(ctx, raw, wafer, by_name, base_dir)
     vna = read_vna(ctx, raw)
+    check_golden_span(ctx, sites, vna)
     probes = read_probes(ctx, raw)
     limits = read_limits(ctx, raw)
     precheck = read_precheck(ctx, raw, "precheck", Precheck()) or Precheck()  # the plan's default

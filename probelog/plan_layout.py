@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import replace
+from pathlib import Path
 from typing import Any
 
 from probelog.bench import Die
@@ -28,7 +29,7 @@ from probelog.plan_fields import (
     text,
 )
 from probelog.plan_toml import Ctx
-from probelog.plan_types import KINDS, ORDERS, Precheck, Site, Wafer
+from probelog.plan_types import KINDS, ORDERS, Golden, Precheck, Site, VnaSettings, Wafer
 
 # Site names become folder names under data/: keep them portable.
 _NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
@@ -36,7 +37,9 @@ _NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
 _WAFER = ("id", "lot", "chip", "cols", "rows", "die_pitch_um", "skip", "dies", "order")
 _SITE = ("name", "kind", "offset_um", "ports", "symmetric", "length_um", "z0_window_ohm",
          "alpha_db_per_mm_max", "eps_eff_window", "window_band_hz", "line_type", "width_um", "gap_um", "metal", "note",
-         "precheck", "s21_db_window", "s21_band_hz", "c_ref_pf_per_mm", "z0_ref_ohm")
+         "precheck", "s21_db_window", "s21_band_hz", "c_ref_pf_per_mm", "z0_ref_ohm",
+         "golden_file", "golden_tol_db", "golden_tol_deg", "golden_floor_db")
+_GOLDEN_TOLS = ("golden_tol_db", "golden_tol_deg", "golden_floor_db")
 _PRECHECK = ("enabled", "points", "ifbw_hz")
 
 
@@ -92,8 +95,9 @@ def _dies(ctx: Ctx, dies_raw: object, order: str, skip: tuple[Die, ...], cols: i
     return dies
 
 
-def read_sites(ctx: Ctx, raw: Table, wafer: Wafer) -> tuple[Site, ...]:
-    """``[[site]]``: the structures on every die, names unique and usable as folder names."""
+def read_sites(ctx: Ctx, raw: Table, wafer: Wafer, base_dir: Path | None = None) -> tuple[Site, ...]:
+    """``[[site]]``: the structures on every die, names unique and usable as folder
+    names; a ``golden_file`` resolves against ``base_dir`` (default: the current folder)."""
     arr = raw.get("site", MISSING)
     if arr is MISSING:
         raise ctx.error("site", "missing; expected one [[site]] table per structure on the die")
@@ -113,11 +117,11 @@ def read_sites(ctx: Ctx, raw: Table, wafer: Wafer) -> tuple[Site, ...]:
         if name in names:
             raise ctx.error(f"{p}.name", f"duplicate site name {name!r} (first defined in {names[name]})")
         names[name] = p
-        out.append(_site(ctx, raw, t, p, name, wafer))
+        out.append(_site(ctx, raw, t, p, name, wafer, base_dir or Path.cwd()))
     return tuple(out)
 
 
-def _site(ctx: Ctx, raw: Table, t: dict[str, Any], p: str, name: str, wafer: Wafer) -> Site:
+def _site(ctx: Ctx, raw: Table, t: dict[str, Any], p: str, name: str, wafer: Wafer, base_dir: Path) -> Site:
     """One ``[[site]]`` table ``t`` at key path ``p`` of plan ``raw`` (its name already checked)."""
     kind = text(ctx, t, "kind", f"{p}.kind", choices=KINDS)
     off = pair(ctx, t, "offset_um", f"{p}.offset_um", "two numbers [x, y] in um")
@@ -155,6 +159,7 @@ def _site(ctx: Ctx, raw: Table, t: dict[str, Any], p: str, name: str, wafer: Waf
         c_ref_pf_per_mm=num(ctx, t, "c_ref_pf_per_mm", f"{p}.c_ref_pf_per_mm", None, positive=True,
                             allow_zero=False),
         z0_ref_ohm=num(ctx, t, "z0_ref_ohm", f"{p}.z0_ref_ohm", None, positive=True, allow_zero=False),
+        golden=_golden(ctx, t, p, base_dir),
     )
     if site.s21_band_hz is not None and site.s21_db_window is None:
         raise ctx.error(f"{p}.s21_band_hz", "needs s21_db_window (the |S21| window judged over that band)")
@@ -172,6 +177,50 @@ def _s21_window(ctx: Ctx, t: Table, p: str, kind: str) -> tuple[float, float] | 
     if w[1] > 1.0:
         raise ctx.error(f"{p}.s21_db_window", f"high end {w[1]:g} dB is above 0 dB: a passive site cannot gain")
     return w
+
+
+def _golden(ctx: Ctx, t: Table, p: str, base_dir: Path) -> Golden | None:
+    """``golden_file`` (a 2-port Touchstone file, relative to the plan's folder),
+    read and hashed now, with ``golden_tol_db`` (dB), ``golden_tol_deg``
+    (degrees) and ``golden_floor_db`` (dB) over the defaults of probelog.golden."""
+    from probelog import golden as g
+
+    name = text(ctx, t, "golden_file", f"{p}.golden_file", None)
+    if name is None:
+        for key in _GOLDEN_TOLS:
+            if key in t:
+                raise ctx.error(f"{p}.{key}", "needs golden_file (the Touchstone file it is a tolerance of)")
+        return None
+    if not name.strip():
+        raise ctx.error(f"{p}.golden_file", "empty; expected a Touchstone file path relative to the plan")
+    floor = num(ctx, t, "golden_floor_db", f"{p}.golden_floor_db", g.FLOOR_DB)
+    if not -200.0 <= floor < 0.0:
+        raise ctx.error(f"{p}.golden_floor_db", f"expected a level below 0 dB (|S| in dB), found {floor:g}")
+    tol_db = num(ctx, t, "golden_tol_db", f"{p}.golden_tol_db", g.TOL_DB, positive=True, allow_zero=False)
+    tol_deg = num(ctx, t, "golden_tol_deg", f"{p}.golden_tol_deg", g.TOL_DEG, positive=True, allow_zero=False)
+    try:
+        path = (base_dir / name).resolve()
+    except (OSError, RuntimeError, ValueError) as exc:
+        raise ctx.error(f"{p}.golden_file", f"not a usable file path ({exc})") from None
+    try:
+        data = g.read_golden(path)
+    except g.GoldenFileError as exc:
+        raise ctx.error(f"{p}.golden_file", str(exc)) from None
+    return Golden(file=str(path), sha256=data.sha256, tol_db=tol_db, tol_deg=tol_deg, floor_db=floor,
+                  z0_ohm=data.z0_ohm, f_hz=data.f_hz, s=data.s)
+
+
+def check_golden_span(ctx: Ctx, sites: tuple[Site, ...], vna: VnaSettings) -> None:
+    """Every golden file shares part of the plan's band ``[vna]`` (Hz) with the sweep."""
+    for i, site in enumerate(sites, start=1):
+        gd = site.golden
+        if gd is None:
+            continue
+        lo, hi = max(float(gd.f_hz[0]), vna.start_hz), min(float(gd.f_hz[-1]), vna.stop_hz)
+        if not lo < hi:
+            raise ctx.error(f"site[{i}].golden_file",
+                            f"{gd.file} covers {gd.f_hz[0] / 1e9:.6g}-{gd.f_hz[-1] / 1e9:.6g} GHz, the plan sweeps "
+                            f"{vna.start_hz / 1e9:.6g}-{vna.stop_hz / 1e9:.6g} GHz: no common span to compare")
 
 
 def read_precheck(ctx: Ctx, t: Table, path: str, missing: Precheck | None,

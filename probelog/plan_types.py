@@ -11,10 +11,11 @@ from __future__ import annotations
 
 import tomllib
 from collections.abc import Iterator, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 from probelog import plan_walk
 from probelog.bench import PRECHECK_IFBW_HZ, PRECHECK_POINTS, Die, SweepSettings
 from probelog.plan_toml import PlanError, too_deep
@@ -56,6 +57,25 @@ class Precheck:
 
 
 @dataclass(frozen=True)
+class Golden:
+    """A site's golden Touchstone file (``golden_file``), read when the plan was
+    loaded: ``file`` its resolved path, ``sha256`` its hash (hex), ``f_hz`` (n,)
+    in Hz, ``s`` (n, 2, 2) linear, ``z0_ohm`` its reference impedance. Every
+    corrected landing must stay within ``tol_db`` (dB of |S|) and ``tol_deg``
+    (degrees of phase) of it; below ``floor_db`` (dB) magnitudes are clamped and
+    phase is not judged (:mod:`probelog.checks.golden`)."""
+
+    file: str
+    sha256: str
+    tol_db: float
+    tol_deg: float
+    floor_db: float
+    z0_ohm: float
+    f_hz: np.ndarray = field(compare=False, repr=False)
+    s: np.ndarray = field(compare=False, repr=False)
+
+
+@dataclass(frozen=True)
 class Site:
     """A structure on every die, at ``offset_um`` (x, y in um) from the die origin.
 
@@ -65,6 +85,7 @@ class Site:
     whole sweep). ``c_ref_pf_per_mm`` (pF/mm) or ``z0_ref_ohm`` (ohm): a line's
     capacitance per length or impedance, known from elsewhere, that turns the
     pad-free two-line gamma into Z0 and RLGC (probelog.line_pairs).
+    ``golden``: the golden Touchstone file every landing is compared with.
     """
 
     name: str
@@ -87,6 +108,7 @@ class Site:
     s21_band_hz: tuple[float, float] | None = None
     c_ref_pf_per_mm: float | None = None
     z0_ref_ohm: float | None = None
+    golden: Golden | None = None
 
 
 @dataclass(frozen=True)

@@ -20,6 +20,7 @@ One module per job; this package re-exports the public names its many callers us
 - :mod:`~probelog.checks.signature`: contact from the kind's signature on the corrected sweep;
 - :mod:`~probelog.checks.properties`: passivity, reciprocity, symmetry, rotation;
 - :mod:`~probelog.checks.windows`: a line's Z0, loss and eps_eff inside the plan's windows;
+- :mod:`~probelog.checks.golden`: a landing against the site's golden Touchstone file;
 - :mod:`~probelog.checks.compare`: repeatability and drift against an earlier sweep;
 - :mod:`~probelog.checks.suite`: every check of a kind, in report order.
 """

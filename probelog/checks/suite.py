@@ -10,6 +10,7 @@ import numpy as np
 
 from probelog.checks.common import worst_of
 from probelog.checks.compare import drift, repeatability
+from probelog.checks.golden import golden_match
 from probelog.checks.properties import passivity, reciprocity, rotation, symmetry
 from probelog.checks.signature import contact
 from probelog.checks.thresholds import KINDS, ROTATING_KINDS, Limits
@@ -47,7 +48,9 @@ def run_checks(ntwk: skrf.Network, kind: str, limits: Limits, expectation: Mappi
     the population's spread (the cal's uncertainty, when the history spans
     cals); ``raw``, ``raw_open``, ``raw_short`` the raw sweep and the active cal's raw open and short (:mod:`probelog.contact`):
     when given, contact is the worse of the physics verdict on raw data and the
-    kind signature on the corrected sweep. Order follows :data:`CHECK_NAMES`.
+    kind signature on the corrected sweep. ``expectation["golden"]`` (the fields
+    of :class:`probelog.plan_types.Golden`) adds the golden-file comparison
+    (:mod:`probelog.checks.golden`). Order follows :data:`CHECK_NAMES`.
     """
     if kind not in KINDS:
         raise ValueError(f"unknown site kind '{kind}' (known: {', '.join(KINDS)})")
@@ -73,6 +76,8 @@ def run_checks(ntwk: skrf.Network, kind: str, limits: Limits, expectation: Mappi
         figures = line_window_figures(f, s, expectation, limits, z0) if s.shape[1] >= 2 else {}
         out.append(line_window(f, s, expectation, limits, z0, figures))
         out.extend(window_quantities(figures))
+    if expectation.get("golden") is not None:
+        out.append(golden_match(f, s, z0, expectation["golden"], unc))
     if previous is not None:
         rep = repeatability(f, s, previous.f, previous.s, limits, unc, previous_label)
         if previous_other_die and rep.verdict in (Verdict.WARN, Verdict.FAIL):

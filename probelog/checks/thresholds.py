@@ -22,6 +22,7 @@ CHECK_NAMES = (
     "line-z0",
     "line-loss",
     "line-eps-eff",
+    "golden",
     "repeatability",
     "population",
     "drift",

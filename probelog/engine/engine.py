@@ -20,6 +20,7 @@ from pathlib import Path
 from typing import Any
 
 from probelog import events as ev
+from probelog import golden
 from probelog import state as st
 from probelog.bench import Bench
 from probelog.engine.checkpoint import load_state, save_state
@@ -110,6 +111,8 @@ class Engine(Policy):
                 plan = plan_from_opened(opened.plan_text, opened.plan_file, Path(session_dir))
             except ValueError as exc:
                 raise EngineError(f"{session_dir}: the plan in session-opened no longer loads: {exc}") from None
+            if why := golden.resume_problem(plan.sites, opened.golden_sha256):
+                raise EngineError(why)
             engine = cls(plan, bench, journal, opened.operator if operator is None else operator, _state=state,
                          _kit_text=_journaled_kit(records, str(journal.path)))
             checked = engine._check_files()
@@ -322,7 +325,8 @@ class Engine(Policy):
             operator=self.operator, wafer=plan.wafer.id, lot=plan.wafer.lot or "", chip=plan.wafer.chip or "",
             probes=self.view.probe_ids(), bench={k: str(v) for k, v in bench_info.items()},
             settings=ev.Settings(start_hz=s.start_hz, stop_hz=s.stop_hz, points=s.points,
-                                 ifbw_hz=s.ifbw_hz, power_dbm=s.power_dbm)))
+                                 ifbw_hz=s.ifbw_hz, power_dbm=s.power_dbm),
+            golden_sha256=golden.site_hashes(plan.sites)))
 
 
 def _journaled_kit(records: list[Any], source: str) -> str | None:
