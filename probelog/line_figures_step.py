@@ -1,6 +1,7 @@
 """The engine's one call after the last decision on a die: journal the die's
 pad-free line figures (``line-figures`` events), one per line family kept at two
-lengths. Pure reading of the state and the kept sweeps; the engine appends."""
+lengths. Pure reading of the state and the kept sweeps; the engine appends.
+:func:`journaled_rows` reads them back from the state for the bundle."""
 
 from __future__ import annotations
 
@@ -9,7 +10,7 @@ from pathlib import Path
 from typing import Any
 
 from probelog import events as ev
-from probelog.line_pairs import LINE_KINDS, die_figures
+from probelog.line_pairs import LINE_KINDS, die_figures, line_site
 from probelog.lines import JSON_KEYS
 from probelog.state import SessionState
 
@@ -44,4 +45,25 @@ def die_events(state: SessionState, die: ev.Die, plan_sites: Any, root: Path) ->
     return out
 
 
-__all__ = ["die_events"]
+def journaled_rows(state: SessionState, sites: dict[str, dict[str, Any]]) -> list[dict[str, Any]]:
+    """The ``line-figures`` events of ``state`` as rows shaped like
+    :func:`probelog.line_pairs.die_figures` gives them (one a die, family and
+    frequency; line type, metal, width and gap from the plan's site tables
+    ``sites``). A family whose line the plan no longer describes gives no rows."""
+    out: list[dict[str, Any]] = []
+    for die, by_family in state.line_figures.items():
+        for fig in by_family.values():
+            a = line_site(fig.site_a, sites.get(fig.site_a, {}))
+            if a is None:
+                continue
+            n = len(fig.metrics.get("f_hz") or [])
+            cols = {k: list(fig.metrics.get(k) or [None] * n) for k in JSON_KEYS}
+            for i in range(n):
+                out.append({"die_col": die[0], "die_row": die[1], "family": fig.family, "line_type": a.line_type,
+                            "metal": a.metal, "width_um": a.width_um, "gap_um": a.gap_um, "site_a": fig.site_a,
+                            "site_b": fig.site_b, "length_a_um": fig.length_a_um, "length_b_um": fig.length_b_um,
+                            "z0_from": fig.z0_from, **{k: cols[k][i] for k in JSON_KEYS}})
+    return out
+
+
+__all__ = ["die_events", "journaled_rows"]

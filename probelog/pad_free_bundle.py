@@ -16,6 +16,7 @@ import base64
 import html
 from typing import Any
 
+from probelog.line_figures_step import journaled_rows
 from probelog.line_pairs import LINE_KINDS, die_figures
 from probelog.manifest import SessionIndex, add_metric_columns
 
@@ -25,10 +26,15 @@ REPORT_HZ = 40e9
 
 
 def figures(index: SessionIndex, networks: dict[int, Any]) -> list[dict[str, Any]]:
-    """Pad-free figures of the session's kept line sweeps (``networks``: manifest seq -> Network)."""
+    """Pad-free figures: those the session journaled (``line-figures``, read into
+    the state) for each die that has them; for the other dies (left unfinished,
+    or a journal from before those events) from the kept line sweeps
+    (``networks``: manifest seq -> Network)."""
+    journaled = journaled_rows(index.state, index.sites)
+    done = {(r["die_col"], r["die_row"]) for r in journaled}
     kept = [((r["die_col"], r["die_row"]), r["site"], networks.get(r["seq"])) for r in index.rows
-            if r.get("kind") in LINE_KINDS]
-    return die_figures(kept, index.sites)
+            if r.get("kind") in LINE_KINDS and (r["die_col"], r["die_row"]) not in done]
+    return journaled + die_figures(kept, index.sites)
 
 
 def add_pad_free_columns(index: SessionIndex, networks: dict[int, Any]) -> int:

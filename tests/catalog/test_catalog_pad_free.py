@@ -138,3 +138,41 @@ def test_the_engine_journals_each_dies_figures_after_its_last_decision(demo_sess
         p = e["payload"]
         for f, eps in zip(p["metrics"]["f_hz"], p["metrics"]["eps_eff"], strict=True):
             assert cat[(p["die"][0], p["die"][1], f)] == pytest.approx(eps, rel=1e-9)
+
+
+def test_the_bundle_takes_the_journaled_figures_and_computes_only_the_rest(demo_sessions):
+    """The bundle's pad-free figures are the ones the session journaled (read
+    into the state); they agree with the figures computed again from the kept
+    sweeps. A die without journaled figures (taken out of the state here, as in
+    a session left mid-die) is computed from its sweeps, and only it needs them."""
+    import dataclasses
+
+    import msgspec
+
+    from probelog.export import load_networks
+    from probelog.manifest import index_session, read_journal
+    from probelog.pad_free_bundle import figures
+
+    index = index_session(read_journal(demo_sessions[0]))
+    networks, problems = load_networks(index, demo_sessions[0], lambda: None)
+    assert problems == []
+    kept = [((r["die_col"], r["die_row"]), r["site"], networks.get(r["seq"])) for r in index.rows]
+
+    def keyed(rows):
+        return {(r["die_col"], r["die_row"], r["family"], r["f_hz"]): r for r in rows}
+
+    computed = keyed(die_figures(kept, index.sites))
+    journaled = keyed(figures(index, {}))  # no sweeps at all: every figure from the journal
+    assert len(journaled) > 0 and set(journaled) == set(computed)
+    for k, row in journaled.items():
+        assert set(row) == set(computed[k])
+        for name, value in row.items():
+            want = computed[k][name]
+            assert value == (pytest.approx(want, rel=1e-9) if isinstance(want, float) else want), (k, name)
+
+    die = next(iter(index.state.line_figures))
+    rest = {d: f for d, f in index.state.line_figures.items() if d != die}
+    cut = dataclasses.replace(index, state=msgspec.structs.replace(index.state, line_figures=rest))
+    assert {(r["die_col"], r["die_row"]) for r in figures(cut, {})} == set(rest)  # that die is missing
+    again = keyed(figures(cut, networks))  # computed from its sweeps
+    assert set(again) == set(computed)
