@@ -193,3 +193,21 @@ def test_a_requested_drift_re_measure_still_goes_before_a_reland(tmp_path):
     assert engine.next_step.kind is S.StepKind.DRIFT
     engine.measure()
     assert (engine.next_step.site, engine.next_step.landing) == ("ln-a", 2)
+
+
+def test_a_pending_reland_survives_a_resume_before_the_due_drift_re_measure(tmp_path):
+    """The re-land is read from the state (the site's last decision re-lands its
+    latest landing), so a session quit right after ``r`` resumes on that site."""
+    engine, bench, journal, _ = make(tmp_path, drift_every=1)
+    calibrate(engine)
+    engine.measure()  # the reference
+    bench.vna.faults[((1, 1), "ln-a")] = ["lifted"]
+    assert engine.measure().verdict is Verdict.FAIL  # a re-measure is due after every landing
+    engine.reland("tip lifted")
+    engine.close(completed=False)
+    again = S.Engine.resume(journal.root, fake_bench())
+    step = again.next_step
+    assert (step.kind, step.site, step.landing) == (S.StepKind.SITE, "ln-a", 2)
+    again.measure()
+    again.accept()
+    assert again.next_step.kind is S.StepKind.DRIFT
