@@ -41,3 +41,20 @@ def test_retries_must_not_be_negative(tmp_path):
     engine = S.Engine(plan, fake_bench(), Journal.create(tmp_path, "h2"), "t")
     with pytest.raises(ValueError, match="retries"):
         run_headless(engine, retries=-1, out=io.StringIO())
+
+
+def test_headless_relands_before_a_drift_re_measure_that_fell_due(tmp_path):
+    """With a re-measure due after every landing, each re-land of a FAIL still
+    comes straight after it; the drift re-measure waits for the next new site."""
+    plan = load_plan_text(plan_text(drift_every=1), "fake.toml")
+    bench = fake_bench()
+    bench.vna.faults[((1, 1), "ln-b")] = ["lifted", "lifted"]
+    engine = S.Engine(plan, bench, Journal.create(tmp_path, "h3"), "t")
+    summary = run_headless(engine, retries=2, out=io.StringIO())
+    assert summary.completed and summary.relands == 2
+    # the lifted tip is caught by the contact pre-check (a FAIL of its own kind)
+    measured = [(e.type, e.payload["site"], e.payload["landing"]) for e in Journal.open(tmp_path / "h3").events()
+                if e.type in ("landing", "precheck", "drift") and e.payload["die"] == [1, 1]]
+    at = measured.index(("precheck", "ln-b", 1))
+    assert measured[at:at + 4] == [("precheck", "ln-b", 1), ("precheck", "ln-b", 2), ("landing", "ln-b", 3),
+                                   ("drift", "cal-thru", measured[at + 3][2])], measured
