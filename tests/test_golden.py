@@ -276,3 +276,32 @@ def test_a_bad_golden_key_or_file_is_one_line_naming_plan_line_and_key(tmp_path,
     key = expect.split(":")[0] if expect.startswith("golden_") else "golden_file"
     line = next(n for n, x in enumerate(text.splitlines(), start=1) if x.startswith(key))
     assert msg.startswith(f"p.toml, line {line}: site[8].{key}"), msg
+
+
+# ---------------------------------------------------------------- the check command
+
+
+def test_check_command_judges_a_file_against_a_golden_file(tmp_path, pcb50, capsys):
+    import json
+
+    from probelog.tui.cli import main
+
+    def save(name: str, net: skrf.Network) -> str:
+        net.write_touchstone(str(tmp_path / name), skrf_comment=False)
+        return str(tmp_path / f"{name}.s2p")
+
+    golden_dut, dut = save("nist_dut", pcb50["nist_dut"]), save("tug_dut", pcb50["tug_dut"])
+    code = main(["check", dut, "--kind", "device", "--golden", golden_dut, "--json"])
+    out = json.loads(capsys.readouterr().out)
+    g = next(c for c in out["checks"] if c["name"] == "golden")
+    assert g["verdict"] == "pass", g["message"]
+    # the 5.5 mm line against the 4 mm line as golden: S21 phase, beta x 1.5 mm (as above)
+    golden_line, line = save("l4000", pcb50["l4000"]), save("l5500", pcb50["l5500"])
+    code = main(["check", line, "--kind", "device", "--golden", golden_line, "--golden-tol-deg", "20", "--json"])
+    out = json.loads(capsys.readouterr().out)
+    g = next(c for c in out["checks"] if c["name"] == "golden")
+    assert code == 1 and g["verdict"] == "fail" and "S21 phase" in g["message"] and g["limit"] == 20.0
+    code = main(["check", line, "--golden", str(tmp_path / "none.s2p")])
+    assert code == 2 and "none.s2p: no such file" in capsys.readouterr().err
+    code = main(["check", line, "--golden-tol-db", "0.3"])
+    assert code == 2 and "--golden-tol-db needs --golden" in capsys.readouterr().err

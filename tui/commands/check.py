@@ -28,6 +28,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--z0-window", type=float, nargs=2, metavar=("LO", "HI"), help="Re Z0 window in ohm")
     parser.add_argument("--eps-eff-window", type=float, nargs=2, metavar=("LO", "HI"), help="eps_eff window")
     parser.add_argument("--alpha-max", type=float, metavar="DB_PER_MM", help="largest loss in dB/mm")
+    parser.add_argument("--golden", metavar="FILE.s2p", help="golden Touchstone file: every port pair of FILE must "
+                        "stay within --golden-tol-db and --golden-tol-deg of it (docs/checks.md)")
+    parser.add_argument("--golden-tol-db", type=float, metavar="DB", help="golden tolerance on |S| in dB (default 0.5)")
+    parser.add_argument("--golden-tol-deg", type=float, metavar="DEG", help="golden tolerance on phase in degrees (default 5)")
     parser.add_argument("--previous", metavar="FILE", help="previous landing on the same site (repeatability)")
     parser.add_argument("--reference", metavar="FILE", help="sweep of this site right after calibration (drift)")
 
@@ -67,6 +71,11 @@ def expectation_from_args(args: argparse.Namespace) -> dict:
         exp["z0_window_ohm"] = w
     if (w := _window("--eps-eff-window", args.eps_eff_window)) is not None:
         exp["eps_eff_window"] = w
+    for name, value in (("--golden-tol-db", args.golden_tol_db), ("--golden-tol-deg", args.golden_tol_deg)):
+        if value is not None and not (math.isfinite(value) and value > 0):
+            raise UsageError(f"{name} must be positive and finite, got {value:g}")
+        if value is not None and args.golden is None:
+            raise UsageError(f"{name} needs --golden")
     if args.alpha_max is not None:
         if not (math.isfinite(args.alpha_max) and args.alpha_max > 0):
             raise UsageError(f"--alpha-max must be positive, got {args.alpha_max:g}")
@@ -121,6 +130,22 @@ def _window_table(figures: dict) -> None:
     Console().print(table)
 
 
+def _golden(args: argparse.Namespace) -> dict:
+    """``--golden`` read as the plan's ``golden_file`` is (probelog.golden), with the tolerances."""
+    from pathlib import Path
+
+    from probelog import golden
+    from probelog.tui.cli import UsageError
+
+    try:
+        data = golden.read_golden(Path(args.golden))
+    except golden.GoldenFileError as exc:
+        raise UsageError(str(exc)) from None
+    return {"file": str(data.path), "sha256": data.sha256, "f_hz": data.f_hz, "s": data.s, "z0_ohm": data.z0_ohm,
+            "tol_db": args.golden_tol_db or golden.TOL_DB, "tol_deg": args.golden_tol_deg or golden.TOL_DEG,
+            "floor_db": golden.FLOOR_DB}
+
+
 def run(args: argparse.Namespace) -> int:
     from probelog.checks import KINDS, Limits, line_window_figures, run_checks
     from probelog.touchstone_input import TouchstoneInputError, load_touchstone, require_ports
@@ -142,6 +167,8 @@ def run(args: argparse.Namespace) -> int:
         reference = load_touchstone(args.reference) if args.reference else None
         cal_open = load_touchstone(args.cal_open) if args.cal_open else None
         cal_short = load_touchstone(args.cal_short) if args.cal_short else None
+        if args.golden:
+            exp["golden"] = _golden(args)
     except TouchstoneInputError as exc:
         raise UsageError(str(exc)) from None
     try:
