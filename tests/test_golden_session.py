@@ -90,6 +90,7 @@ def test_resume_refuses_a_changed_golden_file_with_one_line_naming_it(tmp_path):
     plan = plan_file(tmp_path)
     e = calibrated(tmp_path, plan)
     landing_of(e, "dev-ind")
+    e.checkpoint()  # the resume starts from the snapshot: the journaled hash must survive it
     e.journal.close()  # a crash
     ok = S.Engine.resume(tmp_path / "s1", fake_bench())  # unchanged: resumes
     ok.journal.close()
