@@ -512,7 +512,8 @@ def test_cli_verify_anchor(tmp_path, capsys):
 def test_fast_reference_scan_agrees_with_the_payload_walk(tmp_path):
     # The recovery scan reads file references straight from the journal bytes;
     # the reference is the generic walk over every parsed payload.
-    from probelog.journal import _referenced_paths, _refs
+    from probelog.journal_format import file_refs_in as _refs
+    from probelog.journal_format import referenced_paths as _referenced_paths
 
     j = Journal.create(tmp_path, "refs")
     for i in range(30):

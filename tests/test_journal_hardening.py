@@ -77,7 +77,15 @@ def test_unreadable_journal_is_called_unreadable_not_read_only(tmp_path, monkeyp
             raise PermissionError(errno.EACCES, "Permission denied", str(self))
         return real(self)
 
+    real_open = Path.open
+
+    def denied_open(self, *args, **kwargs):
+        if self.name == "journal.jsonl":
+            raise PermissionError(errno.EACCES, "Permission denied", str(self))
+        return real_open(self, *args, **kwargs)
+
     monkeypatch.setattr(Path, "read_bytes", denied)
+    monkeypatch.setattr(Path, "open", denied_open)  # Journal.open reads through Path.open
     assert cli(["verify", str(folder)]) == 1
     err = capsys.readouterr().err
     assert "unreadable (permission denied)" in err and "read-only" not in err
