@@ -8,6 +8,11 @@ chain, canonical JSON) rather than through 100,000 fsyncs; they name the real
 data files of the first landings. The engine writes a checkpoint every
 probelog.engine.checkpoint.EVERY events; here the last one is written where the
 engine would have written it.
+
+The resume reads the snapshot (the journal prefix it was folded from and the
+state without the landings' bulk), hashes that prefix of the journal once,
+walks only the lines after it and folds their events; the reference walks the
+whole hash chain and folds every event.
 """
 
 from __future__ import annotations
@@ -79,7 +84,7 @@ def measure(report: Callable[..., None], make_session: Callable[[Path], tuple[Pa
     import tempfile
 
     from probelog.engine import Engine
-    from probelog.engine.checkpoint import SNAPSHOT_NAME
+    from probelog.engine.checkpoint import SNAPSHOT_NAME, snapshot_prefix
 
     target = 20_000 if quick else 100_000
     with tempfile.TemporaryDirectory() as tmp:
@@ -94,7 +99,7 @@ def measure(report: Callable[..., None], make_session: Callable[[Path], tuple[Pa
             (folder / JOURNAL_NAME).read_bytes()  # both runs start with the file in the page cache
             gc.disable()  # as Engine.resume does
             t0 = time.perf_counter()
-            Journal.open(folder).close()  # the journal's own part: read, chain, recovery
+            Journal.open(folder, snapshot_prefix(folder)).close()  # the journal's own part: read, chain, recovery
             t1 = time.perf_counter()
             gc.enable()
             engine = Engine.resume(folder, bench)
@@ -106,5 +111,5 @@ def measure(report: Callable[..., None], make_session: Callable[[Path], tuple[Pa
         t_full, _ = resume(full)
     report(f"resume a {n}-event session (checkpoint at {at})", f"{t_ckpt:.2f} s", f"{t_full:.2f} s folding all",
            t_ckpt / t_full, "< 0.5 s", t_ckpt < 0.5)
-    report("  of which Journal.open (reads, parses and hashes every line)", f"{t_open:.2f} s", f"{t_ckpt:.2f} s resume",
-           t_open / t_ckpt, "", None)
+    report("  of which Journal.open (hashes the snapshot's prefix, walks the lines after it)", f"{t_open:.2f} s",
+           f"{t_ckpt:.2f} s resume", t_open / t_ckpt, "", None)

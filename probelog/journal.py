@@ -33,7 +33,8 @@ from probelog.journal_files import (OPEN_FLAGS, atomic_write, data_files, fsync_
 from probelog.journal_format import (DATA_DIR, JOURNAL_NAME, LOCK_NAME, STAGING_PREFIX, TORN_PREFIX, ZERO_HASH,
                                      Event, FileRef, JournalError, NotASessionError, SessionInUseError,
                                      canonical_json, new_session_id, referenced_paths, utc_now)
-from probelog.journal_read import Prefix, head_event, pack_offsets, parse_events, reported_temps, walk_chain
+from probelog.journal_read import (Prefix, PrefixHash, head_event, pack_offsets, parse_events, reported_temps,
+                                   walk_chain)
 from probelog.journal_verify import Problem, VerifyReport, verify
 
 __all__ = ["DATA_DIR", "JOURNAL_NAME", "LOCK_NAME", "STAGING_PREFIX", "TORN_PREFIX", "ZERO_HASH", "Event",
@@ -41,9 +42,6 @@ __all__ = ["DATA_DIR", "JOURNAL_NAME", "LOCK_NAME", "STAGING_PREFIX", "TORN_PREF
            "VerifyReport", "canonical_json", "new_session_id", "verify", "writer_pid"]
 
 _write_all = write_all  # a name of this module's own: the full-disk tests replace it here
-
-_CHUNK = 1 << 20  # bytes read at a time while hashing a trusted prefix
-
 
 class Journal:
     """The one writer of a session folder (an exclusive flock on ``.lock``).
@@ -68,7 +66,7 @@ class Journal:
         self._starts = array("Q")  # byte where each line starts
         self._referenced: set[str] = set()  # data-file paths the lines name
         self._temps_reported: set[str] = set()  # leftover temp files a recovered event named
-        self._hasher: Any = None  # SHA-256 of the first _size bytes, made when first asked for
+        self._hasher: PrefixHash | None = None  # of the first _size bytes, made when first asked for
         self._broken: str | None = None
         self._mutex = threading.Lock()
         self._temp_n = 0
@@ -97,7 +95,7 @@ class Journal:
         folder, fd, lock = make_session_folder(root, session_id, unique)
         journal = cls(folder, lock)
         journal._fd = fd
-        journal._hasher = hashlib.sha256()
+        journal._hasher = PrefixHash()
         try:
             fsync_dir(root)
         except OSError as exc:
@@ -170,12 +168,12 @@ class Journal:
         """The journal as it is now, as a :class:`Prefix` a state snapshot keeps."""
         with self._mutex:
             if self._hasher is None:  # opened by walking the chain: hash what was there once
-                self._hasher = hashlib.sha256()
-                with self.path.open("rb") as fh:
-                    _hash_into(fh, self._size, self._hasher)
+                self._hasher = PrefixHash.of_file(self.path, self._size)
+                if self._hasher is None:
+                    raise JournalError(f"{self.path}: shorter than the {self._size} bytes written")
             return Prefix(size=self._size, sha256=self._hasher.hexdigest(), seq=self._count,
                           last_hash=self._last.hash if self._last else ZERO_HASH,
-                          offsets=pack_offsets(self._starts, self._size), referenced=tuple(self._referenced),
+                          offsets=pack_offsets(self._starts, self._size), referenced=tuple(sorted(self._referenced)),
                           reported_temps=tuple(sorted(self._temps_reported)))
 
     def _load_and_recover(self, prefix: Prefix | None) -> None:
@@ -217,8 +215,8 @@ class Journal:
         starts = prefix.line_starts()
         if starts is None or not 0 < prefix.size <= os.fstat(fh.fileno()).st_size:
             return 0
-        hasher = hashlib.sha256()
-        if not _hash_into(fh, prefix.size, hasher) or hasher.hexdigest() != prefix.sha256:
+        hasher = PrefixHash.of_file(self.path, prefix.size)
+        if hasher is None or hasher.hexdigest() != prefix.sha256:
             return 0
         fh.seek(starts[-1])
         raw = fh.read(prefix.size - starts[-1])
@@ -369,17 +367,3 @@ class Journal:
         self._temp_n += 1
         return f"{os.getpid()}-{self._temp_n}"
 
-
-def _hash_into(fh: IO[bytes], size: int, hasher: Any) -> bool:
-    """Feed the next ``size`` bytes of ``fh`` to ``hasher`` in blocks; False when
-    the file ends first."""
-    buf = bytearray(_CHUNK)
-    view = memoryview(buf)
-    left = size
-    while left:
-        n = fh.readinto(view[:min(_CHUNK, left)])  # type: ignore[attr-defined]
-        if not n:
-            return False
-        hasher.update(view[:n])
-        left -= n
-    return True

@@ -3,16 +3,18 @@ lines, the prefix a state snapshot vouches for, and one line by its number.
 
 A :class:`Prefix` is the first ``seq`` lines of a journal as they were when a
 snapshot was folded from them: their byte length, one SHA-256 over all those
-bytes, where each line starts, and the data files they name. Reopening a long
-session then checks that one hash (one hashlib call) instead of parsing and
+bytes (:class:`PrefixHash`), where each line starts, and the data files they
+name. Reopening a long session then checks that one hash instead of parsing and
 hashing every line; any difference and the whole chain is walked as before.
 """
 
 from __future__ import annotations
 
 import hashlib
+import os
 import re
 import sys
+from concurrent.futures import ThreadPoolExecutor
 from array import array
 from collections.abc import Iterable
 from dataclasses import dataclass
@@ -23,10 +25,71 @@ from probelog.journal_format import (JOURNAL_NAME, ZERO_HASH, Event, JournalErro
                                      referenced_paths)
 
 
+BLOCK = 4 << 20  # bytes per block of a PrefixHash
+
+
+class PrefixHash:
+    """SHA-256 of a journal prefix taken in 4 MiB blocks: the SHA-256 (hex) of the
+    concatenated SHA-256 digests of the blocks (the last one partial). The blocks
+    of a long journal are hashed on several cores at once (hashlib releases the
+    GIL); a live journal keeps it running as lines are appended."""
+
+    def __init__(self) -> None:
+        self._done: list[bytes] = []  # digests of the full blocks
+        self._cur = hashlib.sha256()
+        self._fill = 0  # bytes in the current block
+
+    def update(self, data: bytes | memoryview) -> None:
+        view = memoryview(data)
+        while view:
+            take = min(BLOCK - self._fill, len(view))
+            self._cur.update(view[:take])
+            self._fill += take
+            view = view[take:]
+            if self._fill == BLOCK:
+                self._done.append(self._cur.digest())
+                self._cur, self._fill = hashlib.sha256(), 0
+
+    def hexdigest(self) -> str:
+        tail = [self._cur.digest()] if self._fill else []
+        return hashlib.sha256(b"".join([*self._done, *tail])).hexdigest()
+
+    @classmethod
+    def of_file(cls, path: Path, size: int) -> PrefixHash | None:
+        """The hash of ``path``'s first ``size`` bytes, or None when it is shorter."""
+        full = size // BLOCK
+        out = cls()
+        try:
+            if full > 1:
+                with ThreadPoolExecutor(max_workers=min(4, os.cpu_count() or 1)) as pool:
+                    digests = list(pool.map(lambda k: _block_digest(path, k), range(full)))
+            else:
+                digests = [_block_digest(path, k) for k in range(full)]
+            if any(d is None for d in digests):
+                return None
+            out._done = [d for d in digests if d is not None]
+            with open(path, "rb") as fh:
+                fh.seek(full * BLOCK)
+                rest = fh.read(size - full * BLOCK)
+        except OSError:
+            return None
+        if len(rest) != size - full * BLOCK:
+            return None
+        out.update(rest)
+        return out
+
+
+def _block_digest(path: Path, k: int) -> bytes | None:
+    with open(path, "rb") as fh:
+        fh.seek(k * BLOCK)
+        data = fh.read(BLOCK)
+    return hashlib.sha256(data).digest() if len(data) == BLOCK else None
+
+
 @dataclass(frozen=True)
 class Prefix:
     """The first ``seq`` lines of a journal: ``size`` bytes (the last one a
-    newline) whose SHA-256 is ``sha256``; ``last_hash`` is line ``seq``'s own
+    newline) whose :class:`PrefixHash` is ``sha256``; ``last_hash`` is line ``seq``'s own
     hash (the chain's head). ``offsets``: ``seq + 1`` little-endian uint64, the
     byte where each line starts, then ``size``. ``referenced``: every data-file
     path those lines name; ``reported_temps``: leftover temporary files a
@@ -81,9 +144,11 @@ def read_prefix(folder: str | Path, seq: int) -> Prefix:
         pos = end + 1
     head = data[starts[-1]:pos - 1] if seq else b""
     lines = [data[a:b - 1] for a, b in zip(starts, [*starts[1:], pos], strict=True)]
-    return Prefix(size=pos, sha256=hashlib.sha256(data[:pos]).hexdigest(), seq=seq,
+    hasher = PrefixHash()
+    hasher.update(data[:pos])
+    return Prefix(size=pos, sha256=hasher.hexdigest(), seq=seq,
                   last_hash=hashlib.sha256(head).hexdigest() if seq else ZERO_HASH,
-                  offsets=pack_offsets(starts, pos), referenced=tuple(referenced_paths(data[:pos])),
+                  offsets=pack_offsets(starts, pos), referenced=tuple(sorted(referenced_paths(data[:pos]))),
                   reported_temps=tuple(sorted(reported_temps(_recovered_payloads(lines)))))
 
 

@@ -26,7 +26,7 @@ import msgspec
 
 from probelog import events as ev
 from probelog.events import Die, FileRef
-from probelog.state_records import (_EMPTY_SITE, CalRec, DecisionRec, ErrorRec, LandingRec, NoteRec, ResumeRec,
+from probelog.state_records import (_EMPTY_SITE, Bulk, CalRec, DecisionRec, ErrorRec, LandingRec, NoteRec, ResumeRec,
                                     SiteRec, StandardRec, _S, metric_at)
 from probelog.verdicts import Verdict
 
@@ -246,15 +246,13 @@ def _cal_computed(s: SessionState, e: ev.Event, d: ev.CalComputed) -> SessionSta
     changes: dict[str, Any] = {} if d.cal_id == s.cal_id else _start_cal(d.cal_id, s)
     rec = CalRec(cal_id=d.cal_id, method=d.method, ok=d.ok, message=d.message, seq=e.seq, file=d.file,
                  files=tuple(d.files), verdicts=(Verdict.PASS if d.ok else Verdict.FAIL,),
-                 kit_sha256=d.kit_sha256)
+                 kit_sha256=d.kit_sha256, kit_text=d.kit_text)
     return _replace(s, **changes, pending=rec, cals={**s.cals, d.cal_id: rec}, phase=VERIFYING)
 
 
 def _landing_rec(e: ev.Event, d: ev.Landing | ev.Drift | ev.CalVerification | ev.Precheck,
                  what: str) -> LandingRec:
-    return LandingRec(seq=e.seq, ts=e.ts, landing=d.landing, what=what, verdict=d.verdict,
-                      cal_id=d.cal_id, kind=getattr(d, "kind", ""), checks=tuple(d.checks),
-                      metrics=getattr(d, "metrics", None), raw=d.raw, corrected=getattr(d, "corrected", None))
+    return LandingRec(seq=e.seq, landing=d.landing, what=what, verdict=d.verdict, bulk=Bulk(e.seq, e.ts, d))
 
 
 def _cal_verification(s: SessionState, e: ev.Event, d: ev.CalVerification) -> SessionState:

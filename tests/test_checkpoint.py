@@ -1,15 +1,28 @@
-"""State snapshots: resume folds only the events after a snapshot that matches
-the chain, and ignores one that does not (the journal stays the record)."""
+"""State snapshots: resume takes the journal prefix a snapshot names on one
+SHA-256 and folds only the events after it; a prefix that differs is walked
+line by line (so an edited line is still caught) and a snapshot whose own
+bytes do not hash as recorded is ignored. The journal stays the record.
+
+Reference outside the project: hashlib's SHA-256 (FIPS 180-4) over the journal
+file's bytes, and the full fold of every event (``st.fold`` over
+``ev.read_session``) as what a restored state must equal.
+"""
 
 from __future__ import annotations
 
+import hashlib
+import random
 import shutil
+
+import msgspec
+import pytest
 
 import probelog.session as S
 from probelog import events as ev
 from probelog import state as st
 from probelog.engine import checkpoint
-from probelog.journal import Journal
+from probelog.journal import JOURNAL_NAME, Journal, JournalError
+from probelog.journal_read import PrefixHash, read_prefix
 from probelog.plan import load_plan_text
 from tests._engine_fakes import fake_bench, plan_text
 
@@ -25,40 +38,131 @@ def _session(tmp_path):
     return e
 
 
-def _records(folder):
+def _full_fold(folder):
+    return st.fold(ev.read_session(folder))
+
+
+def _block_sha256(data: bytes, block: int = 4 << 20) -> str:
+    """The prefix hash as documented: SHA-256 of the 4 MiB blocks' SHA-256 digests."""
+    return hashlib.sha256(b"".join(hashlib.sha256(data[i:i + block]).digest()
+                                   for i in range(0, len(data), block))).hexdigest()
+
+
+def test_the_prefix_hash_is_the_hash_of_the_block_hashes_however_it_is_fed(tmp_path):
+    rng = random.Random(7)
+    data = rng.randbytes(9 * (1 << 20) + 12345)  # two full blocks and a partial one
+    (tmp_path / "f").write_bytes(data)
+    want = _block_sha256(data)
+    assert PrefixHash.of_file(tmp_path / "f", len(data)).hexdigest() == want
+    fed = PrefixHash()
+    pos = 0
+    while pos < len(data):  # appended in odd pieces, as journal lines are
+        n = rng.randrange(1, 3 << 20)
+        fed.update(data[pos:pos + n])
+        pos += n
+    assert fed.hexdigest() == want
+    assert PrefixHash.of_file(tmp_path / "f", len(data) - 1).hexdigest() != want  # one byte short
+    assert PrefixHash.of_file(tmp_path / "f", len(data) + 1) is None  # the file is shorter
+    flipped = bytearray(data)
+    flipped[5 << 20] ^= 1  # one bit inside the second block
+    (tmp_path / "f").write_bytes(bytes(flipped))
+    assert PrefixHash.of_file(tmp_path / "f", len(data)).hexdigest() != want
+
+
+def test_the_live_journal_keeps_the_prefix_that_hashing_the_file_gives(tmp_path):
+    e = _session(tmp_path)
+    folder = e.session_dir
+    live = e.journal.prefix()
+    data = (folder / JOURNAL_NAME).read_bytes()
+    assert live.size == len(data) and live.sha256 == _block_sha256(data)
+    assert live == read_prefix(folder, live.seq)
+    e.close(False)
+    # reopened by walking the chain (no snapshot): the same prefix, hashed on demand
+    (folder / checkpoint.SNAPSHOT_NAME).unlink()
     with Journal.open(folder) as j:
-        return j.events()
+        assert j.trusted_seq == 0 and j.prefix() == read_prefix(folder, j.prefix().seq)
 
 
-def test_close_writes_a_snapshot_that_resume_uses_and_that_equals_the_fold(tmp_path):
+def test_resume_takes_the_prefix_on_its_hash_and_equals_the_full_fold(tmp_path):
     e = _session(tmp_path)
     e.close(False)
     folder = tmp_path / "s1"
-    records = _records(folder)
-    snap = checkpoint.snapshot_of(folder, records)
-    assert snap is not None and snap.seq == len(records)
-    assert snap == st.fold(ev.read_session(folder))
+    n = len(ev.read_session(folder))
+    journal, state = checkpoint.open_session(folder)
+    with journal:
+        assert journal.trusted_seq == n  # one hash, no line walked
+        rec = next(x for by in state.sites.values() for r in by.values() for x in r.landings if x.what == "landing")
+        assert not rec.bulk.loaded  # checks and metrics still in the journal
+        assert state == _full_fold(folder)
+        assert rec.bulk.loaded and rec.metrics and rec.checks
     r = S.Engine.resume(folder, fake_bench())
     r.measure()
     r.accept()
     r.journal.close()  # killed: the snapshot is now behind the journal
-    records = _records(folder)
-    assert checkpoint.snapshot_of(folder, records).seq < len(records)
-    assert checkpoint.load_state(folder, records) == st.fold(ev.read_session(folder))
+    journal, state = checkpoint.open_session(folder)
+    with journal:
+        assert 0 < journal.trusted_seq < state.seq
+        assert state == _full_fold(folder)
 
 
-def test_a_snapshot_that_does_not_match_the_chain_is_ignored(tmp_path):
+def test_an_edited_line_inside_the_prefix_is_caught(tmp_path):
+    e = _session(tmp_path)
+    e.close(False)
+    folder = tmp_path / "s1"
+    path = folder / JOURNAL_NAME
+    lines = path.read_bytes().split(b"\n")
+    k = next(i for i, raw in enumerate(lines) if b'"type":"landing"' in raw)
+    lines[k] = lines[k].replace(b'"landing":1', b'"landing":7')
+    path.write_bytes(b"\n".join(lines))
+    with pytest.raises(JournalError, match=f"line {k + 2}: prev does not match"):
+        checkpoint.open_session(folder)
+
+
+def test_a_snapshot_of_another_history_is_ignored(tmp_path):
     e = _session(tmp_path)
     e.close(False)
     folder = tmp_path / "s1"
     other = tmp_path / "other"
     shutil.copytree(folder, other)
-    # another session's history at the same seq: same seq, different line hash
-    lines = (other / "journal.jsonl").read_bytes().split(b"\n")
+    # the same seq, a different last line (nothing after it vouches for it)
+    lines = (other / JOURNAL_NAME).read_bytes().split(b"\n")
     lines[-2] = lines[-2].replace(b'"completed":false', b'"completed":true')
-    (other / "journal.jsonl").write_bytes(b"\n".join(lines))
-    records = _records(other)
-    assert checkpoint.snapshot_of(other, records) is None
-    assert checkpoint.load_state(other, records).closed.completed is True  # folded from the journal
+    (other / JOURNAL_NAME).write_bytes(b"\n".join(lines))
+    journal, state = checkpoint.open_session(other)
+    with journal:
+        assert journal.trusted_seq == 0
+        assert state.closed is not None and state.closed.completed is True  # folded from the journal
+
+
+def _rewrite_state(folder, rehash, **changes):
+    """Rewrite the snapshot with ``changes`` in its state, keeping the recorded
+    hash of the state bytes (a tampered snapshot) or recomputing it (the control)."""
+    path = folder / checkpoint.SNAPSHOT_NAME
+    snap = checkpoint._HEAD.decode(path.read_bytes())
+    lines = checkpoint._Lines(folder, snap.prefix)
+    state = msgspec.msgpack.decode(snap.state, type=st.SessionState, dec_hook=lines.dec_hook)
+    body = checkpoint._ENCODER.encode(msgspec.structs.replace(state, **changes))
+    sha = hashlib.sha256(body).hexdigest() if rehash else snap.state_sha256
+    path.write_bytes(checkpoint._ENCODER.encode(checkpoint._Snapshot(snap.version, snap.prefix, sha,
+                                                                     msgspec.Raw(body))))
+
+
+def test_a_snapshot_whose_state_bytes_were_changed_is_ignored(tmp_path):
+    e = _session(tmp_path)
+    e.close(False)
+    folder = tmp_path / "s1"
+    saved = (folder / checkpoint.SNAPSHOT_NAME).read_bytes()
+    _rewrite_state(folder, rehash=False, n_landings=9)
+    journal, state = checkpoint.open_session(folder)
+    with journal:
+        assert state.n_landings == 1 and state == _full_fold(folder)
+    # the control: the same change with its hash recomputed is taken as written
+    (folder / checkpoint.SNAPSHOT_NAME).write_bytes(saved)
+    _rewrite_state(folder, rehash=True, n_landings=9)
+    journal, state = checkpoint.open_session(folder)
+    with journal:
+        assert state.n_landings == 9
     (folder / checkpoint.SNAPSHOT_NAME).write_bytes(b"not msgpack")
-    assert checkpoint.snapshot_of(folder, _records(folder)) is None
+    journal, state = checkpoint.open_session(folder)
+    with journal:
+        assert journal.trusted_seq == 0 and state == _full_fold(folder)

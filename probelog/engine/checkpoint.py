@@ -1,48 +1,79 @@
-"""State snapshots: resume folds only the events after the last snapshot.
+"""State snapshots: resume takes the journal's first lines on one hash and folds
+only the events after them.
 
-A snapshot (``state.snapshot`` beside the journal, msgpack through msgspec) holds
-the folded state after event ``seq`` and that line's SHA-256. It is used only
-when the journal's line ``seq`` still has that hash (the chain is verified when
-the journal opens, so everything up to ``seq`` is the same journal the snapshot
-was folded from); otherwise, or when it does not decode, every event is folded.
-The journal stays the record: deleting the snapshot changes nothing but speed.
+A snapshot (``state.snapshot`` beside the journal, msgpack through msgspec)
+holds the journal prefix it was folded from (:class:`probelog.journal.Prefix`:
+byte length, one SHA-256 over those bytes, where each line starts, the data
+files they name), the state folded from it, and the SHA-256 of that state's
+bytes. What a landing carries beyond its place in the walk (checks, metrics,
+files: most of a long session's bytes) is not copied in: the state keeps the
+line number and reads the line back when asked for
+(:class:`probelog.state_records.Bulk`), from the prefix the hash vouched for.
+
+Resume (:func:`open_session`): when the journal's first ``size`` bytes still hash
+to the prefix's SHA-256, those lines are neither parsed nor chain-walked again
+(they were when the live journal wrote them); only the lines after them are,
+and only their events are folded onto the state. A prefix that differs (an
+edited line), a snapshot that does not decode, whose state bytes do not hash
+as recorded, or of another version: the whole chain is walked and every event
+folded, so tampering is caught as before. The journal stays the record:
+deleting the snapshot changes nothing but speed.
 """
 
 from __future__ import annotations
 
+import hashlib
 import os
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any
 
 import msgspec
 
 from probelog import events as ev
 from probelog import state as st
+from probelog.journal import JOURNAL_NAME, Journal, Prefix
+from probelog.journal_read import LineSource, read_prefix
+from probelog.state_records import Bulk, Measured
 
 SNAPSHOT_NAME = "state.snapshot"
 # The engine writes a snapshot every EVERY events (and when it closes): resume then
 # folds at most EVERY - 1 events. Writing one costs about as much as reading it
 # (size grows with the session), so not after every event.
 EVERY = 5_000
+_VERSION = 3  # 2: the state holds line figures; 3: the journal prefix and the state's hash,
+# landings' bulk left in the journal
 
 
 class _Snapshot(msgspec.Struct, frozen=True):
     version: int
-    seq: int
-    hash: str
-    state: st.SessionState
+    prefix: Prefix
+    state_sha256: str
+    state: msgspec.Raw
 
 
-_VERSION = 2  # 2: the state holds line figures (a version-1 snapshot would lack those before it)
-_ENCODER = msgspec.msgpack.Encoder()
-_DECODER = msgspec.msgpack.Decoder(_Snapshot)
+def _enc_hook(obj: Any) -> Any:
+    if isinstance(obj, Bulk):
+        return obj.seq  # the journal line it reads back from
+    raise NotImplementedError(f"{type(obj).__name__} has no snapshot form")
 
 
-def save_state(session_dir: Path, state: st.SessionState) -> Path:
-    """Write the snapshot atomically (temp file, fsync, rename)."""
-    path = Path(session_dir) / SNAPSHOT_NAME
+_ENCODER = msgspec.msgpack.Encoder(enc_hook=_enc_hook)
+_HEAD = msgspec.msgpack.Decoder(_Snapshot)
+
+
+def save_state(session_dir: Path, state: st.SessionState, prefix: Prefix | None = None) -> Path:
+    """Write the snapshot of ``state`` atomically (temp file, fsync, rename).
+
+    ``prefix``: the journal as the state was folded from it (``Journal.prefix()``,
+    kept by the live journal); read from the file when not given."""
+    folder = Path(session_dir)
+    prefix = prefix if prefix is not None else read_prefix(folder, state.seq)
+    if prefix.seq != state.seq or prefix.last_hash != (state.hash or prefix.last_hash):
+        raise ValueError(f"{folder}: the state is at event {state.seq}, the journal prefix at {prefix.seq}")
+    body = _ENCODER.encode(state)
+    data = _ENCODER.encode(_Snapshot(_VERSION, prefix, hashlib.sha256(body).hexdigest(), msgspec.Raw(body)))
+    path = folder / SNAPSHOT_NAME
     tmp = path.with_name(f".{SNAPSHOT_NAME}.tmp-{os.getpid()}")
-    data = _ENCODER.encode(_Snapshot(_VERSION, state.seq, state.hash, state))
     with open(tmp, "wb") as fh:
         fh.write(data)
         fh.flush()
@@ -51,25 +82,77 @@ def save_state(session_dir: Path, state: st.SessionState) -> Path:
     return path
 
 
-def snapshot_of(session_dir: Path, records: Sequence[Any]) -> st.SessionState | None:
-    """The snapshot's state when it matches ``records`` (journal.Event list), else None."""
-    path = Path(session_dir) / SNAPSHOT_NAME
+def _read(folder: Path) -> _Snapshot | None:
     try:
-        snap = _DECODER.decode(path.read_bytes())
+        snap = _HEAD.decode((folder / SNAPSHOT_NAME).read_bytes())
     except (OSError, msgspec.DecodeError, msgspec.ValidationError):
         return None
-    if snap.version != _VERSION or not 0 < snap.seq <= len(records):
-        return None
-    if records[snap.seq - 1].hash != snap.hash or snap.state.seq != snap.seq:
-        return None
-    return snap.state
+    return snap if snap.version == _VERSION else None
 
 
-def load_state(session_dir: Path, records: Sequence[Any]) -> st.SessionState:
-    """The state after every record: the snapshot, if valid, plus the events after it."""
-    base = snapshot_of(session_dir, records)
-    dec = ev.Decoder(str(Path(session_dir) / "journal.jsonl"))
+def snapshot_prefix(session_dir: Path | str) -> Prefix | None:
+    """The journal prefix ``session_dir``'s snapshot was folded from, or None."""
+    snap = _read(Path(session_dir))
+    return snap.prefix if snap is not None else None
+
+
+class _Lines:
+    """Reads a landing's event back from the journal for a restored state."""
+
+    def __init__(self, folder: Path, prefix: Prefix) -> None:
+        path = folder / JOURNAL_NAME
+        self._lines = LineSource(path, prefix)
+        self.decoder = ev.Decoder(str(path))
+
+    def load(self, seq: int) -> tuple[str, Measured]:
+        e = self.decoder.line(self._lines.line(seq))
+        if e.seq != seq or not isinstance(e.data, (ev.Landing, ev.Drift, ev.CalVerification, ev.Precheck)):
+            raise ev.EventError(f"{self.decoder.source}, line {seq}: not the measurement the snapshot names")
+        return e.ts, e.data
+
+    def dec_hook(self, type_: type, obj: Any) -> Any:
+        if type_ is Bulk and isinstance(obj, int):
+            return Bulk(obj, load=self.load)
+        raise NotImplementedError(f"{type_.__name__} has no snapshot form")
+
+
+def _restore(folder: Path, snap: _Snapshot) -> st.SessionState | None:
+    """The snapshot's state, or None when its bytes do not hash as recorded or do not decode."""
+    if hashlib.sha256(snap.state).hexdigest() != snap.state_sha256:
+        return None
+    try:
+        lines = _Lines(folder, snap.prefix)
+        state = msgspec.msgpack.decode(snap.state, type=st.SessionState, dec_hook=lines.dec_hook)
+    except (msgspec.DecodeError, msgspec.ValidationError, ev.EventError, ValueError):
+        return None
+    if state.seq != snap.prefix.seq:
+        return None
+    lines.decoder.schema = max(1, state.opened.schema) if state.opened else 1
+    return state
+
+
+def open_session(session_dir: Path | str) -> tuple[Journal, st.SessionState]:
+    """Open ``session_dir``'s journal for writing (its crash recovery included)
+    and the state after its last event: the snapshot's, when the journal's prefix
+    still hashes as it says, plus the events after it; else every event folded."""
+    folder = Path(session_dir)
+    snap = _read(folder)
+    journal = Journal.open(folder, snap.prefix if snap is not None else None)
+    try:
+        return journal, load_state(folder, journal, snap)
+    except BaseException:
+        journal.close()
+        raise
+
+
+def load_state(session_dir: Path, journal: Journal, snap: _Snapshot | None = None) -> st.SessionState:
+    """The state after every event of the open ``journal``."""
+    folder = Path(session_dir)
+    base = None
+    if snap is not None and journal.trusted_seq == snap.prefix.seq > 0:
+        base = _restore(folder, snap)
+    dec = ev.Decoder(str(folder / JOURNAL_NAME))
     if base is None:
-        return st.fold(dec.event(r.seq, r.ts, r.type, r.payload, r.hash) for r in records)
+        return st.fold(dec.event(r.seq, r.ts, r.type, r.payload, r.hash) for r in journal.events())
     dec.schema = max(1, base.opened.schema) if base.opened else 1
-    return st.fold((dec.event(r.seq, r.ts, r.type, r.payload, r.hash) for r in records[base.seq:]), base)
+    return st.fold((dec.event(r.seq, r.ts, r.type, r.payload, r.hash) for r in journal.events(after=base.seq)), base)

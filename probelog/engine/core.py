@@ -72,7 +72,7 @@ class EngineCore:
 
     def _checkpoint(self) -> None:
         try:
-            checkpoint.save_state(self.session_dir, self.state)
+            checkpoint.save_state(self.session_dir, self.state, self.journal.prefix())
         except OSError:  # a snapshot only speeds up a resume; the journal is the record
             pass
 

@@ -23,7 +23,7 @@ from probelog import events as ev
 from probelog import golden
 from probelog import state as st
 from probelog.bench import Bench
-from probelog.engine.checkpoint import load_state, save_state
+from probelog.engine.checkpoint import open_session, save_state
 from probelog.engine.planview import PlanView, plan_from_opened, validate
 from probelog.engine.policy import Policy
 from probelog.engine.store import StoreError
@@ -96,12 +96,10 @@ class Engine(Policy):
     @classmethod
     def _resume(cls, session_dir: Path, bench: Bench, operator: str | None) -> "Engine":
         try:
-            journal = Journal.open(session_dir)
+            journal, state = open_session(session_dir)
         except JournalError as exc:
             raise EngineError(str(exc)) from None
         try:
-            records = journal.events()
-            state = load_state(Path(session_dir), records)
             opened = state.opened
             if opened is None:
                 raise EngineError(f"{session_dir}: journal has no session-opened event; cannot resume")
@@ -114,7 +112,7 @@ class Engine(Policy):
             if why := golden.resume_problem(plan.sites, opened.golden_sha256):
                 raise EngineError(why)
             engine = cls(plan, bench, journal, opened.operator if operator is None else operator, _state=state,
-                         _kit_text=_journaled_kit(records, str(journal.path)))
+                         _kit_text=_journaled_kit(state))
             checked = engine._check_files()
             engine._append(ev.SessionResumed(operator=engine.operator, login=_login(),
                                              probelog_version=_version(), checked_files=checked))
@@ -146,7 +144,7 @@ class Engine(Policy):
 
     def checkpoint(self) -> Path:
         """Write a state snapshot beside the journal (resume then folds only what follows)."""
-        return save_state(self.session_dir, self.state)
+        return save_state(self.session_dir, self.state, self.journal.prefix())
 
     # ------------------------------------------------------------ read-only view
 
@@ -329,15 +327,10 @@ class Engine(Policy):
             golden_sha256=golden.site_hashes(plan.sites)))
 
 
-def _journaled_kit(records: list[Any], source: str) -> str | None:
+def _journaled_kit(state: st.SessionState) -> str | None:
     """The kit text of the last ``cal-computed`` that carries one (schema 2)."""
-    decoder = ev.Decoder(source)
-    for r in reversed(records):
-        if r.type == "cal-computed":
-            data = decoder.payload(r.type, r.payload, r.seq)
-            if isinstance(data, ev.CalComputed) and data.kit_text is not None:
-                return data.kit_text
-    return None
+    cals = [c for c in state.cals.values() if c.kit_text is not None]
+    return max(cals, key=lambda c: c.seq).kit_text if cals else None
 
 
 def _version() -> str:
