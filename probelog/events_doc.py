@@ -1,4 +1,4 @@
-"""docs/journal-events.md, generated from the event classes in probelog.events.
+"""docs/journal-events.md, generated from the event classes in probelog.event_types.
 
 Regenerate with ``python -m probelog.events_doc > docs/journal-events.md``;
 tests/test_events.py fails when the file and the classes disagree.
@@ -42,7 +42,7 @@ def events_markdown() -> str:
 
 _DOC_HEAD = """# Journal events
 
-Generated from `probelog/events.py` by `python -m probelog.events_doc > docs/journal-events.md`;
+Generated from `probelog/event_types.py` by `python -m probelog.events_doc > docs/journal-events.md`;
 `tests/test_events.py` fails when this file and the classes disagree.
 
 One JSON object a line in `sessions/<id>/journal.jsonl`:
