@@ -6,6 +6,7 @@ module as the reader of what the journal wrote; POSIX file semantics for the
 kill -9 trials.
 """
 
+import dataclasses
 import errno
 import hashlib
 import json
@@ -292,6 +293,49 @@ def test_leftover_temp_file_is_kept_and_reported_once(tmp_path):
         assert j.recovered is None
     assert temp.read_bytes() == b"half a file"
     assert verify(folder).ok
+
+
+def test_recovery_is_the_same_when_open_takes_a_snapshots_prefix_on_its_hash(tmp_path):
+    """Torn tail, orphan adoption and the once-only temp report after a prefix
+    taken on its hash (no line of it walked): the prefix carries what the walk
+    would have found (data files named, temps reported)."""
+    folder = _session(tmp_path, n=4)
+    temp = folder / "data" / "d0_1" / ".L9-raw.s2p.tmp-4242-1"
+    temp.write_bytes(b"half a file")
+    with Journal.open(folder) as j:  # reports the temp file once
+        assert j.recovered.payload["leftover_temp"] == ["data/d0_1/.L9-raw.s2p.tmp-4242-1"]
+        prefix = j.prefix()
+        orphan = j.write_file("data/d0_0/x/L1-raw.s2p", b"written, then the process died")
+    path = folder / JOURNAL_NAME
+    torn = b'{"payload":{"die":[1,1],"site":"ln'
+    path.write_bytes(path.read_bytes() + torn)
+    with Journal.open(folder, prefix) as j:
+        assert j.trusted_seq == prefix.seq == 5
+        rec = j.recovered.payload
+        assert rec["torn_line"] == "journal.torn-1" and rec["torn_bytes"] == len(torn)
+        assert rec["adopted"] == [orphan.to_json()]  # the files the prefix names are not orphans
+        assert rec["leftover_temp"] == []  # reported once, by a line inside the prefix
+        assert [e.seq for e in j.events(after=prefix.seq)] == [6]
+        assert [e.seq for e in j.events()] == [1, 2, 3, 4, 5, 6]  # read back from the file
+    assert (folder / "journal.torn-1").read_bytes() == torn
+    assert verify(folder).ok
+
+
+def test_a_prefix_that_does_not_match_the_file_is_walked_line_by_line(tmp_path):
+    folder = _session(tmp_path, n=4)
+    with Journal.open(folder) as j:
+        prefix = j.prefix()
+    assert prefix.sha256 != hashlib.sha256(b"").hexdigest()
+    for wrong in (dataclasses.replace(prefix, sha256="0" * 64), dataclasses.replace(prefix, offsets=b""),
+                  dataclasses.replace(prefix, size=prefix.size + 1)):
+        with Journal.open(folder, wrong) as j:
+            assert j.trusted_seq == 0 and j.last.seq == 4
+    with Journal.open(folder, prefix) as j:  # the control: the right prefix is taken
+        assert j.trusted_seq == 4 and j.last.seq == 4 and j.last.hash == prefix.last_hash
+    path = folder / JOURNAL_NAME
+    path.write_bytes(path.read_bytes().replace(b'"landing":2', b'"landing":7', 1))
+    with pytest.raises(JournalError, match="line 4: prev does not match"):
+        Journal.open(folder, prefix)  # an edited line: the hash differs, the walk names the line
 
 
 def test_damage_in_the_middle_refuses_to_open(tmp_path):
