@@ -24,6 +24,7 @@ import numpy as np
 from probelog.catalog.schema import METRIC_COLUMNS as METRIC_NAMES
 from probelog import events as ev
 from probelog.journal import JournalError, verify
+from probelog.line_figures_step import journaled_rows
 from probelog.line_pairs import die_figures, line_site
 from probelog.manifest import JOURNAL_NAME, SessionFormatError, plan_sites
 from probelog.state import LandingRec, SessionState, fold
@@ -152,7 +153,8 @@ def read_session(path: str | Path, line_figures: bool = True) -> SessionRecord:
     Raises :class:`NotASession` for a path that is not a session folder. A
     journal that cannot be read, a broken hash chain or a data file whose hash
     differs gives a record with status 'damaged' and the problem in one sentence.
-    ``line_figures`` computes the pad-free line figures (reads the line sweeps).
+    ``line_figures`` gives the pad-free line figures (the journaled ones; a die
+    without them is computed from its line sweeps).
     """
     path = Path(path)
     if not path.is_dir():
@@ -184,7 +186,7 @@ def read_session(path: str | Path, line_figures: bool = True) -> SessionRecord:
                           "at_hz": _num(e.data.at_hz), "verdict": e.data.verdict.value, "ts": parse_ts(e.ts)}
                          for e in events if isinstance(e.data, ev.CalAgreement)]
     if line_figures:
-        _line_figures(rec, path, sites)
+        _line_figures(rec, path, sites, state)
     return rec
 
 
@@ -248,23 +250,27 @@ def _kept_rows(rec: SessionRecord, kept: LandingRec) -> None:
             rec.metrics.append(row)
 
 
-def _line_figures(rec: SessionRecord, root: Path, sites: dict[str, dict[str, Any]]) -> None:
-    """Pad-free figures per die and line family from the kept sweeps (corrected,
-    else raw) whose files passed their hash check."""
+def _line_figures(rec: SessionRecord, root: Path, sites: dict[str, dict[str, Any]], state: SessionState) -> None:
+    """Pad-free figures per die and line family: those the session journaled
+    (``line-figures``, read into the state); for a die without them (a session
+    left mid-die, or a journal from before those events) from its kept sweeps
+    (corrected, else raw) whose files passed their hash check."""
     import skrf
 
+    journaled = journaled_rows(state, sites)
+    done = {(r["die_col"], r["die_row"]) for r in journaled}
     kept = []
     for row in rec.site_results:
         rel = row["corrected_file"] or row["raw_file"]
-        if line_site(row["site"], sites.get(row["site"], {})) is None or row["kept_seq"] is None \
-                or not row["files_ok"] or not rel:
+        if (row["die_col"], row["die_row"]) in done or line_site(row["site"], sites.get(row["site"], {})) is None \
+                or row["kept_seq"] is None or not row["files_ok"] or not rel:
             continue
         try:
             ntwk = skrf.Network(str(root / rel))
         except (OSError, ValueError, IndexError):
             continue  # an unreadable sweep gives no figure rather than a wrong one
         kept.append(((row["die_col"], row["die_row"]), row["site"], ntwk))
-    for fig in die_figures(kept, sites):
+    for fig in journaled + die_figures(kept, sites):
         rec.line_figures.append({k: fig[k] for k in (
             "die_col", "die_row", "family", "f_hz", "line_type", "metal", "width_um", "gap_um", "site_a", "site_b",
             "length_a_um", "length_b_um", *METRIC_NAMES, "z0_from")})

@@ -176,3 +176,45 @@ def test_the_bundle_takes_the_journaled_figures_and_computes_only_the_rest(demo_
     assert {(r["die_col"], r["die_row"]) for r in figures(cut, {})} == set(rest)  # that die is missing
     again = keyed(figures(cut, networks))  # computed from its sweeps
     assert set(again) == set(computed)
+
+
+def test_the_catalog_takes_the_journaled_figures_and_reads_no_sweep_for_them(demo_sessions, monkeypatch):
+    """A completed demo session journaled every die's figures: the catalog's rows
+    are those figures and no Touchstone file is opened for them; with the
+    line-figures events gone (a journal from before them) the same figures are
+    computed from the kept sweeps, to 1e-9 (the two paths agree)."""
+    import msgspec
+    import skrf
+
+    from probelog.catalog import source
+    from probelog.state import SessionState
+
+    opened = []
+    real = skrf.Network
+
+    def counting(*args, **kwargs):
+        opened.append(args[0] if args else None)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(skrf, "Network", counting)
+    rec = source.read_session(demo_sessions[0])
+    assert rec.line_figures and opened == []
+    real_fold = source.fold
+
+    def without_figures(events):
+        state: SessionState = real_fold(events)
+        return msgspec.structs.replace(state, line_figures={})
+
+    monkeypatch.setattr(source, "fold", without_figures)
+    again = source.read_session(demo_sessions[0])
+    assert len(opened) > 0  # now the sweeps are read
+
+    def keyed(rows):
+        return {(r["die_col"], r["die_row"], r["family"], r["f_hz"]): r for r in rows}
+
+    a, b = keyed(rec.line_figures), keyed(again.line_figures)
+    assert set(a) == set(b)
+    for k, row in a.items():
+        for name, value in row.items():
+            want = b[k][name]
+            assert value == (pytest.approx(want, rel=1e-9) if isinstance(want, float) else want), (k, name)
