@@ -7,7 +7,8 @@ landing / re-land / accept events written in the journal's own line format (hash
 chain, canonical JSON) rather than through 100,000 fsyncs; they name the real
 data files of the first landings. The engine writes a checkpoint every
 probelog.engine.checkpoint.EVERY events; here the last one is written where the
-engine would have written it.
+engine would have written it (the best case: no event after it), and in a copy
+EVERY - 1 events further back (the worst case: killed just before the next).
 
 The resume reads the snapshot (the journal prefix it was folded from and the
 state without the landings' bulk), hashes that prefix of the journal once,
@@ -68,12 +69,14 @@ def grow_journal(session_dir: Path, target: int) -> int:
     return seq
 
 
-def write_checkpoint_as_the_engine_would(session_dir: Path) -> int:
-    """Fold the journal up to the last multiple of checkpoint.EVERY and save that state."""
+def write_checkpoint_as_the_engine_would(session_dir: Path, behind: int = 0) -> int:
+    """Fold the journal up to the last multiple of checkpoint.EVERY and save that
+    state; ``behind``: that many events further back (a kill just before the
+    engine's next checkpoint leaves it EVERY - 1 behind). Returns its seq."""
     from probelog.engine.checkpoint import EVERY, save_state
 
     events = ev.read_session(session_dir)
-    at = (len(events) // EVERY) * EVERY
+    at = (len(events) // EVERY) * EVERY - behind
     save_state(session_dir, st.fold(events[:at]))
     return at
 
@@ -84,7 +87,7 @@ def measure(report: Callable[..., None], make_session: Callable[[Path], tuple[Pa
     import tempfile
 
     from probelog.engine import Engine
-    from probelog.engine.checkpoint import SNAPSHOT_NAME, snapshot_prefix
+    from probelog.engine.checkpoint import EVERY, SNAPSHOT_NAME, snapshot_prefix
 
     target = 20_000 if quick else 100_000
     with tempfile.TemporaryDirectory() as tmp:
@@ -94,6 +97,9 @@ def measure(report: Callable[..., None], make_session: Callable[[Path], tuple[Pa
         full = Path(tmp) / "full"
         shutil.copytree(session, full)
         (full / SNAPSHOT_NAME).unlink()
+        worst = Path(tmp) / "worst"
+        shutil.copytree(full, worst)
+        at_worst = write_checkpoint_as_the_engine_would(worst, behind=EVERY - 1)
 
         def resume(folder: Path) -> tuple[float, float]:
             (folder / JOURNAL_NAME).read_bytes()  # both runs start with the file in the page cache
@@ -108,8 +114,11 @@ def measure(report: Callable[..., None], make_session: Callable[[Path], tuple[Pa
             return t2 - t1, t1 - t0
 
         t_ckpt, t_open = resume(session)
+        t_worst, _ = resume(worst)
         t_full, _ = resume(full)
     report(f"resume a {n}-event session (checkpoint at {at})", f"{t_ckpt:.2f} s", f"{t_full:.2f} s folding all",
            t_ckpt / t_full, "< 0.5 s", t_ckpt < 0.5)
     report("  of which Journal.open (hashes the snapshot's prefix, walks the lines after it)", f"{t_open:.2f} s",
            f"{t_ckpt:.2f} s resume", t_open / t_ckpt, "", None)
+    report(f"resume it with the checkpoint {n - at_worst} events back (killed just before the next)",
+           f"{t_worst:.2f} s", f"{t_full:.2f} s folding all", t_worst / t_full, "< 0.5 s", t_worst < 0.5)
