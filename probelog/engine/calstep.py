@@ -5,7 +5,7 @@ second algorithm (scikit-rf calibrations behind probelog.calibration).
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import skrf
 
@@ -13,7 +13,11 @@ from probelog import events as ev
 from probelog.engine.core import EngineCore
 from probelog.engine.store import agreement_csv
 from probelog.engine.types import CalOutcome, LandingOutcome, StandardStatus, Step, StepKind, StepMeasured
+from probelog.plan_types import Site
 from probelog.verdicts import CheckResult, Verdict, overall
+
+if TYPE_CHECKING:  # types only: the kit is imported where it is used
+    from probelog.calkit import CalKit
 
 # Worst-case |dS| (linear) between two cal sets from the same standards: above a
 # few hundredths the choice of algorithm shows in the data (common practice, no source).
@@ -105,7 +109,7 @@ class CalStep(EngineCore):
         self._emit(StepMeasured(seq=e.seq, outcome=out))
         return out
 
-    def _fetch_switch_terms(self, raw: skrf.Network, site: Any, step: Step, stem: str) -> list[ev.FileRef] | None:
+    def _fetch_switch_terms(self, raw: skrf.Network, site: Site, step: Step, stem: str) -> list[ev.FileRef] | None:
         """Fetch and store the VNA's switch terms right after a transmissive standard
         (they belong to the instrument; any reciprocal 2-port reveals them, Marks,
         50th ARFTG 1997). None when the VNA does not offer them."""
@@ -143,7 +147,7 @@ class CalStep(EngineCore):
         e = self._append(ev.CalComputed(
             cal_id=cal_id, method=method, standards=names, file=refs[0] if refs else None, files=refs,
             ok=ok, message=message, summary=calset.summary() if calset is not None else None,
-            kit_name=str(getattr(kit, "name", "") or "") or None, kit_text=kit_text, kit_sha256=kit_sha))
+            kit_name=kit.name or None, kit_text=kit_text, kit_sha256=kit_sha))
         outcome = CalOutcome(cal_id, method, ok, message, calset, [], None,
                              Verdict.PASS if ok else Verdict.FAIL, e.seq, refs[0].path if refs else None)
         if not ok:
@@ -181,7 +185,7 @@ class CalStep(EngineCore):
             return None
         return f"calibration {outcome.cal_id} cannot be accepted: {'; '.join(bad)}; redo it"
 
-    def _verification(self, calset: Any, kit: Any) -> list[LandingOutcome]:
+    def _verification(self, calset: Any, kit: CalKit) -> list[LandingOutcome]:
         """Measure every verification site, then judge: the kit's open stub and
         thru with calibration.verify, any other site with its kind's checks."""
         from probelog import calibration as cal
@@ -202,12 +206,12 @@ class CalStep(EngineCore):
             files = self.store.write_pair(f"data/cal/{cal_id}/verify/{site_name}-L{landing}", raw, cor,
                                           self._header(step, "raw"))
             measured.append((step, raw, cor, files))
-        stub_site = kit.verification.get("open_stub_site") if isinstance(kit.verification, dict) else None
+        stub_site = kit.verification.get("open_stub_site")
         thru_site = kit.site_of("thru")
         by_site = {m[0].site: m[2] for m in measured}
         ver_checks: list[CheckResult] = []
         if stub_site in by_site:
-            ver_checks = list(cal.verify(by_site[stub_site], by_site.get(thru_site), kit))
+            ver_checks = list(cal.verify(by_site[stub_site], by_site.get(thru_site) if thru_site else None, kit))
         outs = []
         for step, raw, cor, files in measured:
             if step.site == stub_site:
@@ -227,8 +231,8 @@ class CalStep(EngineCore):
             outs.append(out)
         return outs
 
-    def _agreement(self, method: str, calset: Any, measured: dict[str, skrf.Network], kit: Any,
-                   cal_dir: str, switch: Any) -> dict[str, Any] | None:
+    def _agreement(self, method: str, calset: Any, measured: dict[str, skrf.Network], kit: CalKit,
+                   cal_dir: str, switch: tuple[skrf.Network, ...] | None) -> dict[str, Any] | None:
         from probelog import calibration as cal
 
         others = cal.comparable_methods(method, list(measured), kit)

@@ -11,7 +11,7 @@ from __future__ import annotations
 import threading
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Any, Iterator
+from typing import TYPE_CHECKING, Any, Iterator
 
 import skrf
 
@@ -24,7 +24,11 @@ from probelog.engine.store import Store
 from probelog.engine.types import (CalOutcome, EngineError, EngineEvent, InstrumentError, InstrumentFailed,
                                    LandingOutcome, Phase, PhaseChanged, Step, StepKind, Subscriber)
 from probelog.journal import Journal
+from probelog.plan_types import Site
 from probelog.verdicts import CheckResult
+
+if TYPE_CHECKING:  # the walk imports the evidence lazily, when a landing is judged
+    from probelog.engine.evidence import Evidence
 
 _PHASES = {st.CALIBRATING: Phase.CALIBRATING, st.VERIFYING: Phase.VERIFYING,
            st.DECIDING: Phase.DECIDING}
@@ -141,7 +145,7 @@ class EngineCore:
             if self._reopen_vna:
                 self.bench.vna.reopen()  # a stale reply left in the link would shift every answer
             self._reopen_vna = False
-            self.bench.vna.configure(self.plan.settings, float(self.plan.power_limit_dbm))
+            self.bench.vna.configure(self.plan.settings, self.plan.power_limit_dbm)
         except Exception as exc:
             self._instrument_failed("vna", exc)
         self._configured = True
@@ -150,7 +154,7 @@ class EngineCore:
         """Separate, move at separation, contact, sweep. Counts touchdowns."""
         return self._sweep(self._touch_down(die, site_name))
 
-    def _touch_down(self, die: Die, site_name: str) -> Any:
+    def _touch_down(self, die: Die, site_name: str) -> Site:
         """Configure the VNA, separate, move at separation, contact; counts
         touchdowns. Returns the plan's site."""
         site = self.view.site(site_name)
@@ -158,7 +162,7 @@ class EngineCore:
         prober = self.bench.prober
         try:
             prober.separate()  # never move in XY while in contact
-            prober.move_to(die, tuple(site.offset_um))
+            prober.move_to(die, site.offset_um)
             before = dict(prober.touchdowns)
             prober.contact()
             after = dict(prober.touchdowns)
@@ -171,10 +175,10 @@ class EngineCore:
             self._touchdowns[p] = self._touchdowns.get(p, 0) + max(n, 0)
         return site
 
-    def _sweep(self, site: Any) -> skrf.Network:
+    def _sweep(self, site: Site) -> skrf.Network:
         """The plan's sweep of ``site`` (probes down)."""
         try:
-            net: skrf.Network = self.bench.vna.sweep(ports=int(getattr(site, "ports", 2)))
+            net: skrf.Network = self.bench.vna.sweep(ports=site.ports)
         except Exception as exc:
             self._instrument_failed("vna", exc)
         return net
@@ -197,8 +201,8 @@ class EngineCore:
 
     # ------------------------------------------------------------ data
 
-    def _checks(self, ntwk: skrf.Network, site: Any, previous: skrf.Network | None = None,
-                reference: skrf.Network | None = None, evidence: Any = None,
+    def _checks(self, ntwk: skrf.Network, site: Site, previous: skrf.Network | None = None,
+                reference: skrf.Network | None = None, evidence: Evidence | None = None,
                 raw: skrf.Network | None = None) -> list[CheckResult]:
         """The checks of ``site``'s kind; ``evidence`` (probelog.engine.evidence) adds
         physics contact on ``raw``, the cal's uncertainty, the population and the

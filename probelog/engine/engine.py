@@ -30,6 +30,7 @@ from probelog.engine.store import StoreError
 from probelog.engine.types import (CAUTIONS, CalibrationComputed, CalOutcome, EngineError, LandingOutcome, NoteAdded,
                                    Phase, SessionClosed)
 from probelog.journal import Journal, JournalError
+from probelog.plan_types import Plan
 
 
 class Engine(Policy):
@@ -40,7 +41,7 @@ class Engine(Policy):
     state. ``state`` (probelog.state.SessionState) is the session so far.
     """
 
-    def __init__(self, plan: Any, bench: Bench, journal: Journal, operator: str = "", *,
+    def __init__(self, plan: Plan, bench: Bench, journal: Journal, operator: str = "", *,
                  _state: st.SessionState | None = None, _kit_text: str | None = None) -> None:
         super().__init__(validate(plan, _kit_text, resuming=_state is not None), bench, journal, operator)
         self._active_outcome: CalOutcome | None = None
@@ -54,7 +55,7 @@ class Engine(Policy):
     # ------------------------------------------------------------ construction
 
     @classmethod
-    def new(cls, plan: Any, bench: Bench, sessions_root: Path | str, operator: str = "",
+    def new(cls, plan: Plan, bench: Bench, sessions_root: Path | str, operator: str = "",
             session_id: str | None = None) -> "Engine":
         """Create ``sessions_root/<session_id>/`` with a fresh journal and start.
         The whole plan (kit file and contents, limit names, power) is checked first:

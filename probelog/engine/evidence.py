@@ -23,7 +23,7 @@ from __future__ import annotations
 import csv
 import io
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import skrf
@@ -31,7 +31,12 @@ import skrf
 from probelog import events as ev
 from probelog.bench import Die
 from probelog.limits import cal_uncertainty, verification_residual
+from probelog.state_records import CalRec, LandingRec
 from probelog.verdicts import Verdict
+
+if TYPE_CHECKING:  # the engine imports this module lazily, from its mixins
+    from probelog.engine.calstep import CalStep
+    from probelog.engine.core import EngineCore
 
 
 @dataclass
@@ -54,11 +59,11 @@ class Evidence:
                 "raw_open": self.raw_open, "raw_short": self.raw_short}
 
 
-def _label(die: Die, rec: Any) -> str:
+def _label(die: Die, rec: LandingRec) -> str:
     return f"die {die[0]},{die[1]} landing {rec.landing} (seq {rec.seq})"
 
 
-def raw_open_short(core: Any) -> tuple[skrf.Network | None, skrf.Network | None]:
+def raw_open_short(core: EngineCore) -> tuple[skrf.Network | None, skrf.Network | None]:
     """The active cal's raw open and short (None when it has none or no cal is active)."""
     s = core.state
     if s.active is None or s.active.cal_id != s.cal_id:
@@ -70,8 +75,8 @@ def raw_open_short(core: Any) -> tuple[skrf.Network | None, skrf.Network | None]
     return out[0], out[1]
 
 
-def _agreement_bound(core: Any, rec: Any) -> np.ndarray | None:
-    agree = getattr(rec, "agreement", None)
+def _agreement_bound(core: EngineCore, rec: CalRec) -> np.ndarray | None:
+    agree = rec.agreement  # None: no second algorithm could be compared
     if agree is None or agree.file is None:
         return None
     path = core.store.check(agree.file, f"agreement of {rec.cal_id}")
@@ -79,22 +84,23 @@ def _agreement_bound(core: Any, rec: Any) -> np.ndarray | None:
     return np.array([[float(x) for x in row[1:5]] for row in rows]) if rows else None
 
 
-def _verification_residual(core: Any, rec: Any) -> np.ndarray | None:
+def _verification_residual(core: EngineCore, rec: CalRec) -> np.ndarray | None:
     from probelog.calkit import ideal_thru
 
     kit = core.view.kit()
-    thru_site = kit.site_of("thru") if kit is not None else None
+    thru_site = kit.site_of("thru")
     if thru_site is None:
         return None
     site_rec = core.state.site(core.view.cal_die(), thru_site)
-    ver = [x for x in site_rec.landings if x.what == "verification" and x.cal_id == rec.cal_id and x.corrected]
+    ver = [x.corrected for x in site_rec.landings
+           if x.what == "verification" and x.cal_id == rec.cal_id and x.corrected is not None]
     if not ver:
         return None
-    cor = core.store.network(ver[-1].corrected, f"verification thru of {rec.cal_id}")
+    cor = core.store.network(ver[-1], f"verification thru of {rec.cal_id}")
     return verification_residual(cor.s, ideal_thru(kit, cor.frequency).s)
 
 
-def uncertainty(core: Any, f_hz: np.ndarray) -> np.ndarray | None:
+def uncertainty(core: CalStep, f_hz: np.ndarray) -> np.ndarray | None:
     """u(f) of the active cal on ``f_hz`` (its own grid), cached per cal; None
     without an active cal or on another grid."""
     rec = core.state.active
@@ -119,7 +125,7 @@ def uncertainty(core: Any, f_hz: np.ndarray) -> np.ndarray | None:
     return u
 
 
-def gather(core: Any, die: Die, site: str, f_hz: np.ndarray) -> Evidence:
+def gather(core: CalStep, die: Die, site: str, f_hz: np.ndarray) -> Evidence:
     """Everything :class:`Evidence` holds for a landing of ``site`` on ``die``."""
     s = core.state
     raw_open, raw_short = raw_open_short(core)

@@ -8,50 +8,54 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from probelog.bench import Die
 from probelog.engine.sequence import SiteSequence
 from probelog.engine.types import EngineError
+from probelog.plan_types import CalibrationPlan, Plan, Site
+
+if TYPE_CHECKING:  # types only: the kit and the checks are imported where they are used
+    from probelog.calkit import CalKit
+    from probelog.checks import Limits
 
 
 class PlanView:
-    """Read-only questions about one loaded plan (probelog.plan.Plan)."""
+    """Read-only questions about one loaded plan."""
 
-    def __init__(self, plan: Any, journaled_kit: str | None = None) -> None:
+    def __init__(self, plan: Plan, journaled_kit: str | None = None) -> None:
         self.plan = plan
         self.journaled_kit = journaled_kit  # the kit text a resumed session journaled with its cal
-        self._kit: Any = None
+        self._kit: CalKit | None = None
         self._required: list[tuple[str, str]] | None = None
-        self._limits: Any = None
+        self._limits: Limits | None = None
         # computed on demand: a 1000 x 1000 grid is never a list of its million dies
         self.sequence = SiteSequence(plan)
 
     @property
     def name(self) -> str:
-        return str(self.plan.name)
+        return self.plan.name
 
-    def site(self, name: str) -> Any:
+    def site(self, name: str) -> Site:
         try:
             return self.plan.site(name)
         except KeyError:
             raise EngineError(f"plan {self.name!r}: no site named {name!r}") from None
 
-    def cal(self) -> Any:
-        return getattr(self.plan, "calibration", None)
+    def cal(self) -> CalibrationPlan:
+        return self.plan.calibration
 
     def has_cal(self) -> bool:
-        cal = self.cal()
-        return cal is not None and str(cal.method).lower() not in ("", "none")
+        return self.cal().method.lower() not in ("", "none")
 
     def cal_method(self) -> str:
-        return str(self.cal().method).lower()
+        return self.cal().method.lower()
 
     def kit_source(self) -> str:
         plan_cal = self.cal()
         return str(plan_cal.kit_path) if plan_cal.kit_path else f"{self.plan.source}: calibration.kit"
 
-    def kit(self) -> Any:
+    def kit(self) -> CalKit:
         from probelog import calibration as cal
 
         if self._kit is None:
@@ -61,7 +65,7 @@ class PlanView:
                 raise EngineError(f"plan {self.name!r}: cal kit {self.kit_source()}: {exc}") from None
         return self._kit
 
-    def _kit_mapping(self) -> Any:
+    def _kit_mapping(self) -> dict[str, Any]:
         """The kit file, or on a resume where it cannot be read any more (the
         session moved, the plan was given by a relative path) the text journaled
         with the last cal (the kit the session was calibrated with)."""
@@ -89,17 +93,15 @@ class PlanView:
         if self._required is None:
             from probelog import calibration as cal
 
-            self._required = [(str(n), str(s)) for n, s in
-                              _pairs(cal.required_sites(self.cal_method(), self.kit()))]
+            self._required = cal.required_sites(self.cal_method(), self.kit())
         return self._required
 
     def cal_die(self) -> Die:
-        d = self.cal().die
-        return (int(d[0]), int(d[1]))
+        return self.cal().die
 
     def drift_die(self) -> Die:
         die = self.plan.sequence.drift_die
-        return (int(die[0]), int(die[1])) if die is not None else self.cal_die()
+        return die if die is not None else self.cal_die()
 
     def verify_sites(self) -> list[str]:
         return list(self.cal().verification)
@@ -108,9 +110,9 @@ class PlanView:
         return self.plan.sequence.drift_site if self.has_cal() else None
 
     def drift_every(self) -> int:
-        return int(self.plan.sequence.drift_every_landings or 0)
+        return self.plan.sequence.drift_every_landings
 
-    def limits(self) -> Any:
+    def limits(self) -> Limits:
         if self._limits is None:
             from probelog.checks import Limits
 
@@ -131,7 +133,7 @@ class PlanView:
         raise EngineError(f"plan {self.name!r}: die {die[0]},{die[1]} is not in the plan's die list")
 
 
-def validate(plan: Any, journaled_kit: str | None = None, resuming: bool = False) -> PlanView:
+def validate(plan: Plan, journaled_kit: str | None = None, resuming: bool = False) -> PlanView:
     """Everything a session will need from the plan, checked now: power limit,
     kit file (exists, parses, holds the standards the method needs), limit names.
     EngineError with one line naming the file and field; nothing is created.
@@ -139,10 +141,10 @@ def validate(plan: Any, journaled_kit: str | None = None, resuming: bool = False
     the file cannot be read any more). A resumed session of a journal older than
     kit texts, whose kit file is gone, opens and fails only when it calibrates."""
     view = PlanView(plan, journaled_kit)
-    power = float(plan.settings.power_dbm)
-    if power > float(plan.power_limit_dbm):
+    power = plan.vna.power_dbm
+    if power > plan.power_limit_dbm:
         raise EngineError(f"plan {view.name!r}: source power {power:g} dBm is above the plan's "
-                          f"limit of {float(plan.power_limit_dbm):g} dBm; refusing to start")
+                          f"limit of {plan.power_limit_dbm:g} dBm; refusing to start")
     view.limits()
     if view.has_cal():
         try:
@@ -160,25 +162,12 @@ def validate(plan: Any, journaled_kit: str | None = None, resuming: bool = False
     return view
 
 
-def _pairs(required: Any) -> list[tuple[str, str]]:
-    """required_sites() as (standard, site) pairs, whatever mapping or list it gives."""
-    if isinstance(required, dict):
-        return list(required.items())
-    out = []
-    for item in required:
-        if isinstance(item, (tuple, list)):
-            out.append((item[0], item[1]))
-        else:
-            out.append((getattr(item, "name", getattr(item, "standard", None)), item.site))
-    return out
-
-
-def expectation(site: Any) -> dict[str, Any]:
+def expectation(site: Site) -> dict[str, Any]:
     """The plan's expectations of a site as the mapping run_checks reads."""
     return {k: v for k, v in dataclasses.asdict(site).items() if v is not None}
 
 
-def plan_from_opened(plan_text: str, plan_file: str, session_dir: Path) -> Any:
+def plan_from_opened(plan_text: str, plan_file: str, session_dir: Path) -> Plan:
     from probelog.plan import load_plan_text
 
     if not plan_text:

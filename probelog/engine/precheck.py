@@ -34,6 +34,7 @@ from probelog.engine.core import EngineCore
 from probelog.engine.planview import expectation
 from probelog.engine.store import die_dir
 from probelog.engine.types import LandingOutcome, Step, StepMeasured
+from probelog.plan_types import Site
 from probelog.verdicts import CheckResult, Verdict
 
 
@@ -52,7 +53,7 @@ def on_grid(ntwk: skrf.Network, f_hz: Any) -> skrf.Network:
 class PrecheckStep(EngineCore):
     """The pre-check between touchdown and the full sweep (a mixin of the Engine)."""
 
-    def _precheck(self, step: Step, site: Any) -> LandingOutcome | None:
+    def _precheck(self, step: Step, site: Site) -> LandingOutcome | None:
         """Run the pre-check of ``step`` (probes down): None when it passed or
         could not be judged (go on to the full sweep), else the FAIL outcome,
         journaled and announced."""
@@ -64,7 +65,7 @@ class PrecheckStep(EngineCore):
             return None  # nothing to judge against: the full sweep's checks decide
         settings = precheck_settings(self.plan.settings, conf.points, conf.ifbw_hz)
         try:
-            raw = self.bench.vna.precheck_sweep(settings, ports=int(getattr(site, "ports", 2)))
+            raw = self.bench.vna.precheck_sweep(settings, ports=site.ports)
         except Exception as exc:
             self._instrument_failed("vna", exc)
         if raw is None:
@@ -77,7 +78,7 @@ class PrecheckStep(EngineCore):
             return None
         return self._precheck_failed(step, site, raw, settings, result)
 
-    def _precheck_failed(self, step: Step, site: Any, raw: skrf.Network, settings: SweepSettings,
+    def _precheck_failed(self, step: Step, site: Site, raw: skrf.Network, settings: SweepSettings,
                          result: CheckResult) -> LandingOutcome:
         check = CheckResult(result.name, result.verdict, result.value, result.limit, result.at_hz,
                             f"pre-check ({settings.points} points at {settings.ifbw_hz / 1e3:g} kHz IF "

@@ -11,17 +11,16 @@ from __future__ import annotations
 
 import bisect
 from collections.abc import Iterator
-from typing import Any
-
 from probelog.bench import Die
+from probelog.plan_types import Plan, Site
 
 
 class SiteSequence:
-    """A read-only sequence of (die, site) over a loaded plan (probelog.plan.Plan)."""
+    """A read-only sequence of (die, site) over a loaded plan."""
 
-    def __init__(self, plan: Any) -> None:
+    def __init__(self, plan: Plan) -> None:
         self._plan = plan
-        self._sites: tuple[Any, ...] = tuple(plan.sequence_sites)
+        self._sites: tuple[Site, ...] = plan.sequence_sites
         w = plan.wafer
         self._listed: list[Die] | None = None
         self._listed_at: dict[Die, int] | None = None
@@ -29,12 +28,12 @@ class SiteSequence:
             self._listed = plan.dies_in_order()
             n_dies = len(self._listed)
         else:
-            self._cols = int(w.cols)
-            self._skip = {(int(c), int(r)) for c, r in w.skip}
-            skipped = [0] * int(w.rows)
+            self._cols = w.cols
+            self._skip = set(w.skip)
+            skipped = [0] * w.rows
             for _, r in self._skip:
                 skipped[r] += 1
-            self._rows = [r for r in range(int(w.rows)) if skipped[r] < self._cols]
+            self._rows = [r for r in range(w.rows) if skipped[r] < self._cols]
             self._row_index = {r: j for j, r in enumerate(self._rows)}
             self._first: list[int] = []  # die index of each row's first die
             n_dies = 0
@@ -50,7 +49,7 @@ class SiteSequence:
     def __len__(self) -> int:
         return self._n_dies * len(self._sites)
 
-    def __getitem__(self, i: int) -> tuple[Die, Any]:
+    def __getitem__(self, i: int) -> tuple[Die, Site]:
         n = len(self)
         if i < 0:
             i += n
@@ -59,7 +58,7 @@ class SiteSequence:
         k, s = divmod(i, len(self._sites))
         return self._die_at(k), self._sites[s]
 
-    def __iter__(self) -> Iterator[tuple[Die, Any]]:
+    def __iter__(self) -> Iterator[tuple[Die, Site]]:
         for die in self._plan.iter_dies():
             for site in self._sites:
                 yield die, site
@@ -81,7 +80,7 @@ class SiteSequence:
         pos = self._row_cols(j).index(c)  # one row: at most a thousand columns
         return (self._first[j] + pos) * len(self._sites)
 
-    def die_items(self, die: Die) -> list[tuple[Die, Any]]:
+    def die_items(self, die: Die) -> list[tuple[Die, Site]]:
         """The (die, site) pairs of one die, in sequence order ([] if not visited)."""
         return [] if self.die_start(die) is None else [((int(die[0]), int(die[1])), s) for s in self._sites]
 

@@ -5,8 +5,6 @@ the walk), and measuring a site or a drift reference.
 
 from __future__ import annotations
 
-from typing import Any
-
 import skrf
 
 from probelog import events as ev
@@ -16,6 +14,7 @@ from probelog.engine.precheck import PrecheckStep
 from probelog.engine.store import die_dir
 from probelog.engine.types import (DriftChecked, EngineError, JumpedToDie, LandingOutcome, Phase,
                                    RecalibrationAdvised, Step, StepKind, StepMeasured)
+from probelog.plan_types import Site
 from probelog.verdicts import Verdict, overall
 
 
@@ -131,8 +130,8 @@ class Walk(CalStep, PrecheckStep):
         self._announce_phase(before, e.seq)
         return out
 
-    def _metrics(self, ntwk: skrf.Network, site: Any) -> dict[str, list[float | None]] | None:
-        length_um = getattr(site, "length_um", None)
+    def _metrics(self, ntwk: skrf.Network, site: Site) -> dict[str, list[float | None]] | None:
+        length_um = site.length_um  # None: a line the plan gives no length
         if site.kind not in ("line", "thru") or not length_um or ntwk.nports != 2:
             return None
         import numpy as np
@@ -141,7 +140,7 @@ class Walk(CalStep, PrecheckStep):
 
         try:
             with np.errstate(all="ignore"):  # a lifted tip gives singular ABCD; checks judge it
-                m = lines.line_metrics(ntwk, float(length_um) * 1e-6)
+                m = lines.line_metrics(ntwk, length_um * 1e-6)
                 got: dict[str, list[float | None]] = lines.metrics_at(
                     m, lines.default_frequencies(m.f_hz, prefer_round=True))
                 return got
