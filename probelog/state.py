@@ -132,12 +132,6 @@ class SessionState(_S, frozen=True):
             return ACCEPTED_DESPITE_FAIL
         return DONE
 
-    def metric_at(self, die: Die, site: str, name: str, f_hz: float) -> float | None:
-        """Metric ``name`` of the kept landing of (die, site) at the journaled
-        frequency nearest ``f_hz`` (Hz); None when there is none."""
-        kept = self.last_accepted(die, site)
-        return metric_at(kept.metrics if kept else None, name, f_hz)
-
     def summary(self, planned_sites: int | None = None) -> dict[str, Any]:
         """Counts for summaries: ``accepted`` counts plain accepts, ``accepted_despite_fail``
         the FAIL landings kept with a reason, ``failed`` the give-ups."""
@@ -156,7 +150,6 @@ class SessionState(_S, frozen=True):
         if planned_sites is not None:
             out = {"sites": planned_sites, **out}
         return out
-
 
 
 def planned_done(state: SessionState, planned: int) -> bool:

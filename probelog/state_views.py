@@ -10,6 +10,13 @@ from probelog.state import SessionState
 from probelog.state_records import DecisionRec, LandingRec, metric_at
 
 
+def kept_metric_at(state: SessionState, die: Die, site: str, name: str, f_hz: float) -> float | None:
+    """Metric ``name`` of the kept landing of (die, site) at the journaled
+    frequency nearest ``f_hz`` (Hz); None when there is none."""
+    kept = state.last_accepted(die, site)
+    return metric_at(kept.metrics if kept else None, name, f_hz)
+
+
 def metric_names(state: SessionState) -> list[str]:
     """Every line-metric name journaled in the session (``f_hz`` excluded)."""
     names: dict[str, None] = {}

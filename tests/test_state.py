@@ -174,10 +174,10 @@ def test_metric_at_a_chosen_frequency_from_the_journaled_lists(tmp_path):
     assert len(freqs) >= 2 and "alpha_db_per_mm" in sv.metric_names(e.state)
     # nearest journaled point: just above the second frequency picks the second value
     want = kept.metrics["alpha_db_per_mm"][1]
-    assert e.state.metric_at((1, 1), "ln-b", "alpha_db_per_mm", freqs[1] * 1.01) == pytest.approx(want)
+    assert sv.kept_metric_at(e.state, (1, 1), "ln-b", "alpha_db_per_mm", freqs[1] * 1.01) == pytest.approx(want)
     # the fake line has alpha = 20 Np/m = 0.1737 dB/mm (8.686 dB/Np; tests/_engine_fakes.py)
     assert want == pytest.approx(20.0 * 8.686 / 1000, rel=0.05)
-    assert e.state.metric_at((2, 1), "ln-b", "alpha_db_per_mm", freqs[1]) is None  # not landed
+    assert sv.kept_metric_at(e.state, (2, 1), "ln-b", "alpha_db_per_mm", freqs[1]) is None  # not landed
 
 
 def test_recalibrating_from_probing_goes_on_where_the_walk_stopped(tmp_path):
