@@ -29,9 +29,12 @@ from probelog import state as st
 from probelog.journal import JOURNAL_NAME, Journal, canonical_json
 
 
-def grow_journal(session_dir: Path, target: int) -> int:
+def grow_journal(session_dir: Path, target: int, checkpoint_at: int | None = None) -> int:
     """Append events to ``session_dir``'s journal until it holds ``target`` events:
-    per (die, site) four failed landings re-landed, then one kept. Returns the count."""
+    per (die, site) four failed landings re-landed, then one kept. Returns the count.
+
+    ``checkpoint_at``: after that event, write the state snapshot and journal the
+    ``checkpoint`` event that vouches for it, as the engine does."""
     path = session_dir / JOURNAL_NAME
     data = path.read_bytes()
     events = ev.decode_lines(data, str(path))
@@ -48,6 +51,14 @@ def grow_journal(session_dir: Path, target: int) -> int:
         raw = canonical_json(rec)
         out.extend(raw + b"\n")
         prev = hashlib.sha256(raw).hexdigest()
+        if seq == checkpoint_at:
+            from probelog.engine.checkpoint import save_state
+
+            with open(path, "ab") as fh:
+                fh.write(out)
+            out.clear()
+            sha = save_state(session_dir, st.fold(ev.read_session(session_dir)))
+            line(ev.Checkpoint(seq=seq, sha256=sha))
 
     # a 40 x 40 die grid off the plan's wafer (the walk does not reach it; the state
     # counts it), six sites a die: 1,600 dies, as on a large wafer
@@ -69,18 +80,6 @@ def grow_journal(session_dir: Path, target: int) -> int:
     return seq
 
 
-def write_checkpoint_as_the_engine_would(session_dir: Path, behind: int = 0) -> int:
-    """Fold the journal up to the last multiple of checkpoint.EVERY and save that
-    state; ``behind``: that many events further back (a kill just before the
-    engine's next checkpoint leaves it EVERY - 1 behind). Returns its seq."""
-    from probelog.engine.checkpoint import EVERY, save_state
-
-    events = ev.read_session(session_dir)
-    at = (len(events) // EVERY) * EVERY - behind
-    save_state(session_dir, st.fold(events[:at]))
-    return at
-
-
 def measure(report: Callable[..., None], make_session: Callable[[Path], tuple[Path, object]], quick: bool) -> None:
     """Resume with and without the checkpoint; report time and ratio."""
     import shutil
@@ -90,16 +89,17 @@ def measure(report: Callable[..., None], make_session: Callable[[Path], tuple[Pa
     from probelog.engine.checkpoint import EVERY, SNAPSHOT_NAME, snapshot_prefix
 
     target = 20_000 if quick else 100_000
+    at = (target // EVERY) * EVERY  # where the engine checkpoints (its checkpoint event follows)
+    at_worst = at - (EVERY - 1)  # killed just before the next checkpoint: EVERY - 1 events to fold
     with tempfile.TemporaryDirectory() as tmp:
         session, bench = make_session(Path(tmp))
-        n = grow_journal(session, target)
-        at = write_checkpoint_as_the_engine_would(session)
+        worst = Path(tmp) / "worst"
+        shutil.copytree(session, worst)
+        n = grow_journal(session, target, checkpoint_at=at)
+        grow_journal(worst, target, checkpoint_at=at_worst)
         full = Path(tmp) / "full"
         shutil.copytree(session, full)
         (full / SNAPSHOT_NAME).unlink()
-        worst = Path(tmp) / "worst"
-        shutil.copytree(full, worst)
-        at_worst = write_checkpoint_as_the_engine_would(worst, behind=EVERY - 1)
 
         def resume(folder: Path) -> tuple[float, float]:
             (folder / JOURNAL_NAME).read_bytes()  # both runs start with the file in the page cache

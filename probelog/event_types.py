@@ -297,6 +297,18 @@ class LineFigures(_Record, frozen=True):
     metrics: Metrics = {}
 
 
+class Checkpoint(_Record, frozen=True):
+    """A state snapshot (``state.snapshot``) was written, folded through event
+    ``seq``; ``sha256`` is the SHA-256 of the snapshot file's bytes. Resume takes
+    a snapshot only when an event after the lines it covers vouches for it like
+    this, so the snapshot is as trustworthy as the hash-chained journal: a
+    snapshot rewritten afterwards, its own hashes recomputed, is ignored."""
+
+    TYPE: ClassVar[str] = "checkpoint"
+    seq: int
+    sha256: str
+
+
 class Note(_Record, frozen=True):
     TYPE: ClassVar[str] = "note"
     text: str = ""
@@ -348,12 +360,12 @@ class UnknownEvent:
 Payload = Union[
     SessionOpened, SessionResumed, CautionsShown, CalStandard, CalComputed, CalVerification,
     CalAgreement, CalAccepted, CalRejected, RecalRequested, Landing, Drift, Decision, DieSkipped,
-    Note, Goto, InstrumentError, Recovered, SessionClosed, LineFigures, Precheck,
+    Note, Goto, InstrumentError, Recovered, SessionClosed, LineFigures, Precheck, Checkpoint,
 ]
 EVENT_CLASSES: tuple[type[_Record], ...] = (
     SessionOpened, SessionResumed, CautionsShown, CalStandard, CalComputed, CalVerification,
     CalAgreement, CalAccepted, CalRejected, RecalRequested, Landing, Drift, Decision, DieSkipped,
-    Note, Goto, InstrumentError, Recovered, SessionClosed, LineFigures, Precheck,
+    Note, Goto, InstrumentError, Recovered, SessionClosed, LineFigures, Precheck, Checkpoint,
 )
 BY_TYPE: dict[str, type[_Record]] = {c.TYPE: c for c in EVENT_CLASSES}
 AnyPayload = Union[Payload, UnknownEvent]

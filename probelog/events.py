@@ -33,7 +33,7 @@ import msgspec
 
 from probelog.event_types import (  # re-exported: callers read every event type as ev.<Name>
     ACCEPT, ACCEPT_DESPITE_FAIL, ACTIONS, AnyPayload, BY_TYPE, CalAccepted, CalAgreement, CalComputed, CalRejected,
-    CalStandard, CalVerification, CautionsShown, Check, Decision, Die, DieSkipped, Drift, EVENT_CLASSES, EventError,
+    CalStandard, CalVerification, CautionsShown, Check, Checkpoint, Decision, Die, DieSkipped, Drift, EVENT_CLASSES, EventError,
     FileRef, GIVE_UP, Goto, InstrumentError, Landing, LineFigures, Metrics, Note, Payload, Precheck, RecalRequested,
     Recovered, RELAND, SCHEMA, SessionClosed, SessionOpened, SessionResumed, Settings, SKIP, UnknownEvent,
 )
@@ -42,7 +42,7 @@ from probelog.verdicts import CheckResult, Verdict  # Verdict: read as ev.Verdic
 __all__ = ["ACCEPT", "ACCEPT_DESPITE_FAIL", "ACTIONS", "AnyPayload", "BY_TYPE", "CalAccepted", "CalAgreement",
            "CalComputed", "CalRejected", "CalStandard", "CalVerification", "CautionsShown", "Check", "checks_of",
            "Decision", "decode_events", "decode_lines", "Decoder", "Die", "DieSkipped", "Drift", "encode", "Event",
-           "EVENT_CLASSES", "EventError", "file_refs", "FileRef", "GIVE_UP", "Goto", "InstrumentError", "Landing",
+           "Checkpoint", "EVENT_CLASSES", "EventError", "file_refs", "FileRef", "GIVE_UP", "Goto", "InstrumentError", "Landing",
            "LineFigures", "Metrics", "Note", "Payload", "Precheck", "read_session", "RecalRequested", "Recovered",
            "RELAND", "SCHEMA", "SessionClosed", "SessionOpened", "SessionResumed", "Settings", "SKIP",
            "UnknownEvent", "Verdict"]

@@ -398,5 +398,5 @@ _HANDLERS: dict[type, Any] = {
     ev.DieSkipped: _die_skipped, ev.Note: _note, ev.Goto: _goto, ev.InstrumentError: _instrument_error,
     ev.Recovered: _recovered, ev.SessionClosed: _closed,
     ev.LineFigures: _line_figures,
-    ev.Precheck: _precheck,
+    ev.Precheck: _precheck, ev.Checkpoint: _same,
 }

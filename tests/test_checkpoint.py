@@ -90,7 +90,9 @@ def test_resume_takes_the_prefix_on_its_hash_and_equals_the_full_fold(tmp_path):
     n = len(ev.read_session(folder))
     journal, state = checkpoint.open_session(folder)
     with journal:
-        assert journal.trusted_seq == n  # one hash, no line walked
+        # one hash for every line but the last two: the checkpoint event that
+        # vouches for the snapshot, and session-closed
+        assert journal.trusted_seq == n - 2
         rec = next(x for by in state.sites.values() for r in by.values() for x in r.landings if x.what == "landing")
         assert not rec.bulk.loaded  # checks and metrics still in the journal
         assert state == _full_fold(folder)
@@ -124,14 +126,16 @@ def test_a_snapshot_of_another_history_is_ignored(tmp_path):
     folder = tmp_path / "s1"
     other = tmp_path / "other"
     shutil.copytree(folder, other)
-    # the same seq, a different last line (nothing after it vouches for it)
-    lines = (other / JOURNAL_NAME).read_bytes().split(b"\n")
-    lines[-2] = lines[-2].replace(b'"completed":false', b'"completed":true')
-    (other / JOURNAL_NAME).write_bytes(b"\n".join(lines))
+    # the same seq, a different last covered line: the journal cut after the line
+    # before the checkpoint event, that line edited (its hash no longer the prefix's)
+    lines = (other / JOURNAL_NAME).read_bytes().split(b"\n")[:-3]
+    lines[-1] = lines[-1].replace(b'"reason":""', b'"reason":"edited"', 1)
+    assert lines[-1] != (folder / JOURNAL_NAME).read_bytes().split(b"\n")[-4]
+    (other / JOURNAL_NAME).write_bytes(b"\n".join(lines) + b"\n")
     journal, state = checkpoint.open_session(other)
     with journal:
         assert journal.trusted_seq == 0
-        assert state.closed is not None and state.closed.completed is True  # folded from the journal
+        assert state == _full_fold(other)  # folded from the journal
 
 
 def _rewrite_state(folder, rehash, **changes):
@@ -156,13 +160,46 @@ def test_a_snapshot_whose_state_bytes_were_changed_is_ignored(tmp_path):
     journal, state = checkpoint.open_session(folder)
     with journal:
         assert state.n_landings == 1 and state == _full_fold(folder)
-    # the control: the same change with its hash recomputed is taken as written
-    (folder / checkpoint.SNAPSHOT_NAME).write_bytes(saved)
+    # the same change with the state's hash recomputed (a deliberate edit): the
+    # journal's checkpoint event names the file's SHA-256, so it is ignored too
     _rewrite_state(folder, rehash=True, n_landings=9)
     journal, state = checkpoint.open_session(folder)
     with journal:
-        assert state.n_landings == 9
+        assert state.n_landings == 1 and state == _full_fold(folder)
+    # the control: the engine's own snapshot, vouched for by its event, is taken
+    (folder / checkpoint.SNAPSHOT_NAME).write_bytes(saved)
+    journal, state = checkpoint.open_session(folder)
+    with journal:
+        rec = next(x for by in state.sites.values() for r in by.values() for x in r.landings if x.what == "landing")
+        assert not rec.bulk.loaded  # restored from the snapshot, not folded
+        assert state == _full_fold(folder)
     (folder / checkpoint.SNAPSHOT_NAME).write_bytes(b"not msgpack")
     journal, state = checkpoint.open_session(folder)
     with journal:
         assert journal.trusted_seq == 0 and state == _full_fold(folder)
+
+
+def test_a_snapshot_no_checkpoint_event_vouches_for_is_ignored(tmp_path):
+    """A snapshot written without its checkpoint event (a kill between the two,
+    or a file dropped in by hand) is not taken: the journal does not vouch for it."""
+    e = _session(tmp_path)
+    folder = tmp_path / "s1"
+    checkpoint.save_state(folder, e.state, e.journal.prefix())  # the file alone, no event
+    e.journal.close()
+    journal, state = checkpoint.open_session(folder)
+    with journal:
+        landing = next(x for by in state.sites.values() for r in by.values() for x in r.landings
+                       if x.what == "landing")
+        assert landing.bulk.loaded  # folded from the journal
+        assert state == _full_fold(folder)
+    # the engine's checkpoint writes the file and the event: then it is taken
+    r = S.Engine.resume(folder, fake_bench())
+    r.checkpoint()
+    r.journal.close()
+    events = ev.read_session(folder)
+    assert isinstance(events[-1].data, ev.Checkpoint) and events[-1].data.seq == events[-2].seq
+    journal, state = checkpoint.open_session(folder)
+    with journal:
+        landing = next(x for by in state.sites.values() for r in by.values() for x in r.landings
+                       if x.what == "landing")
+        assert not landing.bulk.loaded and state == _full_fold(folder)

@@ -57,6 +57,7 @@ SAMPLES: list[ev.Payload] = [
     ev.Precheck(die=(1, 2), site="ln", landing=3, kind="line", cal_id="cal1", raw=REF,
                 settings=ev.Settings(1e9, 110e9, 11, 1e5, -10.0), checks=[CHECK], verdict=Verdict.FAIL,
                 touchdowns={"west": 7}),
+    ev.Checkpoint(seq=2000, sha256="ab" * 32),
 ]
 
 

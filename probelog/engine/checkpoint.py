@@ -13,11 +13,15 @@ line number and reads the line back when asked for
 Resume (:func:`open_session`): when the journal's first ``size`` bytes still hash
 to the prefix's SHA-256, those lines are neither parsed nor chain-walked again
 (they were when the live journal wrote them); only the lines after them are,
-and only their events are folded onto the state. A prefix that differs (an
-edited line), a snapshot that does not decode, whose state bytes do not hash
-as recorded, or of another version: the whole chain is walked and every event
-folded, so tampering is caught as before. The journal stays the record:
-deleting the snapshot changes nothing but speed.
+and only their events are folded onto the state. The snapshot is taken only
+when one of those later events is the ``checkpoint`` event the engine journaled
+right after writing it, naming its seq and the SHA-256 of the snapshot file: a
+snapshot rewritten afterwards (its own hashes recomputed) or written by anything
+but the engine is not vouched for by the hash-chained journal and is ignored. A
+prefix that differs (an edited line), a snapshot that does not decode, whose
+state bytes do not hash as recorded, or of another version: the whole chain is
+walked and every event folded, so tampering is caught as before. The journal
+stays the record: deleting the snapshot changes nothing but speed.
 """
 
 from __future__ import annotations
@@ -62,8 +66,10 @@ _ENCODER = msgspec.msgpack.Encoder(enc_hook=_enc_hook)
 _HEAD = msgspec.msgpack.Decoder(_Snapshot)
 
 
-def save_state(session_dir: Path, state: st.SessionState, prefix: Prefix | None = None) -> Path:
-    """Write the snapshot of ``state`` atomically (temp file, fsync, rename).
+def save_state(session_dir: Path, state: st.SessionState, prefix: Prefix | None = None) -> str:
+    """Write the snapshot of ``state`` atomically (temp file, fsync, rename);
+    returns the SHA-256 (hex) of the file's bytes, for the ``checkpoint`` event
+    that vouches for it (resume ignores a snapshot no such event names).
 
     ``prefix``: the journal as the state was folded from it (``Journal.prefix()``,
     kept by the live journal); read from the file when not given."""
@@ -80,21 +86,23 @@ def save_state(session_dir: Path, state: st.SessionState, prefix: Prefix | None 
         fh.flush()
         os.fsync(fh.fileno())
     os.replace(tmp, path)
-    return path
+    return hashlib.sha256(data).hexdigest()
 
 
-def _read(folder: Path) -> _Snapshot | None:
+def _read(folder: Path) -> tuple[_Snapshot, str] | None:
+    """The snapshot and the SHA-256 of its file's bytes, or None."""
     try:
-        snap = _HEAD.decode((folder / SNAPSHOT_NAME).read_bytes())
+        data = (folder / SNAPSHOT_NAME).read_bytes()
+        snap = _HEAD.decode(data)
     except (OSError, msgspec.DecodeError, msgspec.ValidationError):
         return None
-    return snap if snap.version == _VERSION else None
+    return (snap, hashlib.sha256(data).hexdigest()) if snap.version == _VERSION else None
 
 
 def snapshot_prefix(session_dir: Path | str) -> Prefix | None:
     """The journal prefix ``session_dir``'s snapshot was folded from, or None."""
-    snap = _read(Path(session_dir))
-    return snap.prefix if snap is not None else None
+    read = _read(Path(session_dir))
+    return read[0].prefix if read is not None else None
 
 
 class _Lines:
@@ -135,25 +143,30 @@ def _restore(folder: Path, snap: _Snapshot) -> st.SessionState | None:
 def open_session(session_dir: Path | str) -> tuple[Journal, st.SessionState]:
     """Open ``session_dir``'s journal for writing (its crash recovery included)
     and the state after its last event: the snapshot's, when the journal's prefix
-    still hashes as it says, plus the events after it; else every event folded."""
+    still hashes as it says and a later event vouches for it, plus the events
+    after it; else every event folded."""
     folder = Path(session_dir)
-    snap = _read(folder)
-    journal = Journal.open(folder, snap.prefix if snap is not None else None)
+    read = _read(folder)
+    journal = Journal.open(folder, read[0].prefix if read is not None else None)
     try:
-        return journal, load_state(folder, journal, snap)
+        return journal, load_state(folder, journal, read)
     except BaseException:
         journal.close()
         raise
 
 
-def load_state(session_dir: Path, journal: Journal, snap: _Snapshot | None = None) -> st.SessionState:
+def load_state(session_dir: Path, journal: Journal, read: tuple[_Snapshot, str] | None = None) -> st.SessionState:
     """The state after every event of the open ``journal``."""
     folder = Path(session_dir)
-    base = None
-    if snap is not None and journal.trusted_seq == snap.prefix.seq > 0:
-        base = _restore(folder, snap)
     dec = ev.Decoder(str(folder / JOURNAL_NAME))
-    if base is None:
-        return st.fold(dec.event(r.seq, r.ts, r.type, r.payload, r.hash) for r in journal.events())
-    dec.schema = max(1, base.opened.schema) if base.opened else 1
-    return st.fold((dec.event(r.seq, r.ts, r.type, r.payload, r.hash) for r in journal.events(after=base.seq)), base)
+    if read is not None and journal.trusted_seq == read[0].prefix.seq > 0:
+        snap, file_sha = read
+        base = _restore(folder, snap)
+        if base is not None:
+            dec.schema = max(1, base.opened.schema) if base.opened else 1
+            tail = [dec.event(r.seq, r.ts, r.type, r.payload, r.hash) for r in journal.events(after=base.seq)]
+            if any(isinstance(e.data, ev.Checkpoint) and e.data.seq == base.seq and e.data.sha256 == file_sha
+                   for e in tail):
+                return st.fold(tail, base)
+        dec = ev.Decoder(str(folder / JOURNAL_NAME))
+    return st.fold(dec.event(r.seq, r.ts, r.type, r.payload, r.hash) for r in journal.events())

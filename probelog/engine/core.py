@@ -74,11 +74,15 @@ class EngineCore:
             self._checkpoint()
         return e
 
-    def _checkpoint(self) -> None:
+    def _checkpoint(self) -> Path | None:
+        """Write a state snapshot and journal the ``checkpoint`` event that vouches
+        for it (resume takes no snapshot without one); None when it could not be written."""
         try:
-            checkpoint.save_state(self.session_dir, self.state, self.journal.prefix())
+            sha = checkpoint.save_state(self.session_dir, self.state, self.journal.prefix())
         except OSError:  # a snapshot only speeds up a resume; the journal is the record
-            pass
+            return None
+        self._append(ev.Checkpoint(seq=self.state.seq, sha256=sha))
+        return self.session_dir / checkpoint.SNAPSHOT_NAME
 
     def _phase_of(self, s: st.SessionState) -> Phase:
         p = _PHASES.get(s.phase)

@@ -23,7 +23,7 @@ from probelog import events as ev
 from probelog import golden
 from probelog import state as st
 from probelog.bench import Bench
-from probelog.engine.checkpoint import open_session, save_state
+from probelog.engine.checkpoint import open_session
 from probelog.engine.planview import PlanView, plan_from_opened, validate
 from probelog.engine.policy import Policy
 from probelog.engine.store import StoreError
@@ -144,8 +144,12 @@ class Engine(Policy):
         return n
 
     def checkpoint(self) -> Path:
-        """Write a state snapshot beside the journal (resume then folds only what follows)."""
-        return save_state(self.session_dir, self.state, self.journal.prefix())
+        """Write a state snapshot beside the journal and journal the event that
+        vouches for it (resume then folds only what follows)."""
+        path = self._checkpoint()
+        if path is None:
+            raise EngineError(f"{self.session_dir}: cannot write the state snapshot")
+        return path
 
     # ------------------------------------------------------------ read-only view
 
@@ -295,9 +299,11 @@ class Engine(Policy):
             completed = self._phase is Phase.DONE
         try:
             self._safe_separate()
+            # the snapshot and its checkpoint event come before session-closed, which
+            # stays the last event; a resume then folds those two events only
+            self._checkpoint()
             e = self._append(ev.SessionClosed(completed=bool(completed), summary=self.summary(), cause=cause))
             self._emit(SessionClosed(seq=e.seq, completed=bool(completed)))
-            self._checkpoint()
         finally:
             self.journal.close()
 
