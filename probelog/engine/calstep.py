@@ -16,8 +16,10 @@ from probelog.engine.types import CalOutcome, LandingOutcome, StandardStatus, St
 from probelog.plan_types import Site
 from probelog.verdicts import CheckResult, Verdict, overall
 
-if TYPE_CHECKING:  # types only: the kit is imported where it is used
+if TYPE_CHECKING:  # types only: the kit and the cal set are imported where they are used
     from probelog.calkit import CalKit
+    from probelog.calset import CalSet
+    from probelog.state_records import CalRec
 
 # Worst-case |dS| (linear) between two cal sets from the same standards: above a
 # few hundredths the choice of algorithm shows in the data (common practice, no source).
@@ -134,7 +136,7 @@ class CalStep(EngineCore):
         cal_dir = f"data/cal/{cal_id}"
         names = [name for name, _ in self.view.required()]
         switch = self._switch_networks()
-        calset: Any
+        calset: CalSet | None
         try:
             calset = cal.solve(method, measured, kit, switch_terms=switch, cal_id=cal_id)
             ok, message = True, f"{method.upper()} solved from {len(measured)} standards"
@@ -150,7 +152,7 @@ class CalStep(EngineCore):
             kit_name=kit.name or None, kit_text=kit_text, kit_sha256=kit_sha))
         outcome = CalOutcome(cal_id, method, ok, message, calset, [], None,
                              Verdict.PASS if ok else Verdict.FAIL, e.seq, refs[0].path if refs else None)
-        if not ok:
+        if calset is None:  # not solved (ok is False)
             return outcome
         outcome.verification = self._verification(calset, kit)
         outcome.agreement = self._agreement(method, calset, measured, kit, cal_dir, switch)
@@ -185,7 +187,7 @@ class CalStep(EngineCore):
             return None
         return f"calibration {outcome.cal_id} cannot be accepted: {'; '.join(bad)}; redo it"
 
-    def _verification(self, calset: Any, kit: CalKit) -> list[LandingOutcome]:
+    def _verification(self, calset: CalSet, kit: CalKit) -> list[LandingOutcome]:
         """Measure every verification site, then judge: the kit's open stub and
         thru with calibration.verify, any other site with its kind's checks."""
         from probelog import calibration as cal
@@ -231,7 +233,7 @@ class CalStep(EngineCore):
             outs.append(out)
         return outs
 
-    def _agreement(self, method: str, calset: Any, measured: dict[str, skrf.Network], kit: CalKit,
+    def _agreement(self, method: str, calset: CalSet, measured: dict[str, skrf.Network], kit: CalKit,
                    cal_dir: str, switch: tuple[skrf.Network, ...] | None) -> dict[str, Any] | None:
         from probelog import calibration as cal
 
@@ -256,7 +258,7 @@ class CalStep(EngineCore):
         out["file"] = {"path": ref.path, "sha256": ref.sha256}
         return out
 
-    def _active_calset(self) -> Any:
+    def _active_calset(self) -> CalSet | None:
         """The accepted cal set (read back once after a resume, hash-checked), or None."""
         rec = self.state.active
         if rec is None or not rec.ok:
@@ -266,12 +268,12 @@ class CalStep(EngineCore):
             got = self._calsets[rec.cal_id] = self._calset_of(rec)
         return got
 
-    def _calset_of(self, rec: Any) -> Any:
+    def _calset_of(self, rec: CalRec) -> CalSet:
         """The saved cal set of a CalRec, every file hash-checked."""
         files = rec.files or ((rec.file,) if rec.file else ())
         return self.store.calset(files, f"cal set of {rec.cal_id}")
 
-    def _outcome_of(self, rec: Any, calset: Any) -> CalOutcome:
+    def _outcome_of(self, rec: CalRec, calset: CalSet | None) -> CalOutcome:
         agreement = None
         if rec.agreement is not None:
             agreement = ev.encode(rec.agreement)

@@ -11,7 +11,8 @@ from __future__ import annotations
 import threading
 from contextlib import contextmanager
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Iterator
+from collections.abc import Iterator, Sequence
+from typing import TYPE_CHECKING, Any
 
 import skrf
 
@@ -28,6 +29,7 @@ from probelog.plan_types import Site
 from probelog.verdicts import CheckResult
 
 if TYPE_CHECKING:  # the walk imports the evidence lazily, when a landing is judged
+    from probelog.calset import CalSet
     from probelog.engine.evidence import Evidence
 
 _PHASES = {st.CALIBRATING: Phase.CALIBRATING, st.VERIFYING: Phase.VERIFYING,
@@ -55,7 +57,7 @@ class EngineCore:
         self._walk_cursor = (0, 0)  # (walk start, sequence offset the last next_step stopped at)
         self._touchdowns: dict[str, int] = dict.fromkeys(view.probe_ids(), 0)
         self._phase = Phase.CALIBRATING if view.has_cal() else Phase.PROBING
-        self._calsets: dict[str, Any] = {}  # cal_id -> solved cal set (kept in memory once read)
+        self._calsets: dict[str, CalSet] = {}  # cal_id -> solved cal set (kept in memory once read)
         self._last_outcome: LandingOutcome | None = None  # the landing waiting for a decision
         self._pending_cal: CalOutcome | None = None  # the live outcome of compute_calibration()
 
@@ -239,5 +241,6 @@ def need_reason(text: str, what: str) -> str:
     return text
 
 
-def die_of(die: Any) -> Die:
+def die_of(die: Sequence[int]) -> Die:
+    """(col, row) as ints, from a die the caller gave as any pair (a list read from JSON too)."""
     return (int(die[0]), int(die[1]))

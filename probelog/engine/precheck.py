@@ -23,8 +23,6 @@ tip on an ``open`` site, a very short open stub: probelog.contact says why).
 
 from __future__ import annotations
 
-from typing import Any
-
 import numpy as np
 import skrf
 
@@ -38,7 +36,7 @@ from probelog.plan_types import Site
 from probelog.verdicts import CheckResult, Verdict
 
 
-def on_grid(ntwk: skrf.Network, f_hz: Any) -> skrf.Network:
+def on_grid(ntwk: skrf.Network, f_hz: np.ndarray) -> skrf.Network:
     """``ntwk`` at exactly the frequencies ``f_hz`` (Hz) when each is one of its own
     points (the pre-check's grid is a subset of the plan's, on which the cal's
     standards were measured): a slice, no interpolation. Else ``ntwk`` as it is

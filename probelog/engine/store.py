@@ -14,14 +14,19 @@ import hashlib
 import os
 import tempfile
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import skrf
 
+from probelog import journal_format
 from probelog.bench import Die
 from probelog.events import FileRef
 from probelog.journal import Journal
 from probelog.touchstone_out import network_to_touchstone
+
+if TYPE_CHECKING:  # types only: the cal set and its agreement are imported where they are used
+    from probelog.cal_agreement import Agreement
+    from probelog.calset import CalSet
 
 
 class StoreError(Exception):
@@ -32,9 +37,9 @@ def die_dir(die: Die) -> str:
     return f"d{int(die[0])}_{int(die[1])}"
 
 
-def ref_of(r: Any) -> FileRef:
+def ref_of(r: journal_format.FileRef) -> FileRef:
     """journal.FileRef -> events.FileRef."""
-    return FileRef(path=str(r.path), sha256=str(r.sha256))
+    return FileRef(path=r.path, sha256=r.sha256)
 
 
 class Store:
@@ -83,7 +88,7 @@ class Store:
     def write_bytes(self, stem: str, suffix: str, data: bytes) -> FileRef:
         return ref_of(self.journal.write_file(f"{self.unused(stem, [suffix])}{suffix}", data))
 
-    def save_calset(self, calset: Any, cal_dir: str) -> list[FileRef]:
+    def save_calset(self, calset: CalSet, cal_dir: str) -> list[FileRef]:
         """Every file of the saved cal set, calset.json first. CalSet.save writes
         plain files: save to a scratch folder, then store each through the journal."""
         folder = self.unused(f"{cal_dir}/calset", [""])
@@ -118,7 +123,7 @@ class Store:
             self._nets[ref.path] = got
         return got
 
-    def calset(self, files: list[FileRef] | tuple[FileRef, ...], what: str) -> Any:
+    def calset(self, files: list[FileRef] | tuple[FileRef, ...], what: str) -> CalSet:
         """Load a saved cal set after checking every one of its files."""
         from probelog.calset import load_calset
 
@@ -130,7 +135,7 @@ class Store:
         return load_calset(first.parent if first.name == "calset.json" else first)
 
 
-def agreement_csv(result: Any) -> bytes:
+def agreement_csv(result: Agreement) -> bytes:
     with tempfile.TemporaryDirectory() as tmp:
         data: bytes = result.write_csv(Path(tmp) / "agreement.csv").read_bytes()
         return data

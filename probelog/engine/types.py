@@ -9,12 +9,15 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from enum import Enum
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Any, Callable
 
 import skrf
 
 from probelog.bench import Die
 from probelog.verdicts import CheckResult, Verdict
+
+if TYPE_CHECKING:  # types only: the cal set is imported where it is solved or read
+    from probelog.calset import CalSet
 
 CAUTIONS = """\
 Before you land:
@@ -116,7 +119,7 @@ class CalOutcome:
     method: str
     ok: bool
     message: str
-    calset: Any
+    calset: CalSet | None
     verification: list[LandingOutcome]
     agreement: dict[str, Any] | None
     verdict: Verdict
