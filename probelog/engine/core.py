@@ -14,6 +14,7 @@ from pathlib import Path
 from collections.abc import Iterator, Sequence
 from typing import TYPE_CHECKING, Any
 
+import numpy as np
 import skrf
 
 from probelog import events as ev
@@ -58,6 +59,7 @@ class EngineCore:
         self._touchdowns: dict[str, int] = dict.fromkeys(view.probe_ids(), 0)
         self._phase = Phase.CALIBRATING if view.has_cal() else Phase.PROBING
         self._calsets: dict[str, CalSet] = {}  # cal_id -> solved cal set (kept in memory once read)
+        self._unc_cache: dict[str, tuple[np.ndarray, np.ndarray]] = {}  # cal_id -> (f in Hz, u(f)), see evidence
         self._last_outcome: LandingOutcome | None = None  # the landing waiting for a decision
         self._pending_cal: CalOutcome | None = None  # the live outcome of compute_calibration()
 

@@ -106,7 +106,7 @@ def uncertainty(core: CalStep, f_hz: np.ndarray) -> np.ndarray | None:
     rec = core.state.active
     if rec is None:
         return None
-    cache: dict[str, tuple[np.ndarray, np.ndarray]] = core.__dict__.setdefault("_unc_cache", {})
+    cache = core._unc_cache
     if rec.cal_id not in cache:
         calset = core._active_calset()
         if calset is None:
