@@ -142,3 +142,30 @@ def test_cautions_reflow_joins_continuations_and_keeps_every_word():
     assert not any(line.startswith(" ") for line in out.splitlines())
     assert len(out.splitlines()) == sum(1 for ln in CAUTIONS.splitlines() if not ln.startswith("  "))
     assert reflow("- one\n  two\n- three") == "- one two\n- three"
+
+
+def test_the_board_names_what_each_contact_figure_measures():
+    """Found in tmux on the demo: a raw thru's contact row read '|Sii| worst port
+    -0.668 dB, limit -10 dB' (it is the thru's transmission), and the physics
+    check's '7.22 x allowance, limit 1' read as failing (higher passes there)."""
+    from probelog.checks import Limits
+    from probelog.standard_checks import transmission_contact
+    from probelog.tui.widgets.verdict_board import quantity_of
+
+    freq = skrf.Frequency(1, 110, 56, unit="GHz")
+    media = DefinedGammaZ0(freq, z0_port=50, z0=50, gamma=1j * 2 * np.pi * freq.f / 299_792_458.0)
+    thru = media.line(1e-3, "m")  # a lossless matched line: |S21| = 0 dB (physics)
+    result = transmission_contact(thru, Limits())
+    assert result.verdict is Verdict.PASS and result.unit == "dB"
+    assert quantity_of(result) == "raw |S21| ≥ limit"
+    # the physics contact check's wording (probelog.contact, copied here): higher passes
+    phys = CheckResult("contact", Verdict.PASS, 7.22, 1.0, 1.5e9,
+                       "port 1 departs from the probe short (7.22 x the allowance at 1.5 GHz)", "x allowance")
+    assert quantity_of(phys) == "off the probe short ≥ limit"
+    # a corrected line's transmission signature (probelog.checks.signature wording)
+    line = CheckResult("contact", Verdict.PASS, -1.2, -10.0, 2e9, "signal passes (lowest |S21| -1.20 dB up to 10 GHz)",
+                       "dB")
+    assert quantity_of(line) == "|S21| ≥ limit"
+    # a matched site's reflection signature is still a reflection (lower passes)
+    refl = CheckResult("contact", Verdict.PASS, -25.0, -10.0, 2e9, "worst |Sii| -25.0 dB: landed", "dB")
+    assert quantity_of(refl) == "|Sii| worst port"

@@ -70,13 +70,36 @@ _QUANTITY = {"contact": "|Sii| worst port", "passivity": "σmax(S)", "reciprocit
              "repeatability": "Δ|Sij| vs last", "drift": "Δ|Sij| vs ref"}
 
 
+def _contact_quantity(check: CheckResult) -> str:
+    """Contact is judged several ways (probelog.contact, checks.signature,
+    standard_checks): name the figure this result gives and, where a higher
+    figure is the good side, say so (a 7.2 against a limit of 1 passes)."""
+    import re
+
+    msg = check.message or ""
+    if "the plan expects" in msg or "transmits as the plan says" in msg:
+        return "|S21| in the plan's window"
+    if any(k in msg for k in ("transmission", "gets through", "|S21|", "|S12|")):
+        return ("raw |S21|" if "raw" in msg else "|S21|") + " ≥ limit"
+    if check.unit == "x allowance":
+        found = re.search(r"probe (open|short)", msg)
+        return f"off the probe {found.group(1) if found else 'open'} ≥ limit"
+    if check.unit == "ohm":
+        return "Re Z of the short"
+    if check.unit == "dB":
+        return "|Sii| worst port"
+    return ""
+
+
 def quantity_of(check: CheckResult) -> str:
     """The S-parameter (and port) a check's figure is about: the first one its
     message names (e.g. "S21 at 40.0 GHz"), else what the check measures."""
     import re
 
     base = check.name.split(" ")[0]
-    if base in ("passivity", "reciprocity", "symmetry", "line-window", "contact"):
+    if base == "contact":
+        return _contact_quantity(check)
+    if base in ("passivity", "reciprocity", "symmetry", "line-window"):
         return _QUANTITY[base]  # fixed by what the check computes
     found = re.search(r"\|?S(\d)(\d)\|?", check.message or "")
     if found and found.group(1) != found.group(2):
