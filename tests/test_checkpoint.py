@@ -203,3 +203,15 @@ def test_a_snapshot_no_checkpoint_event_vouches_for_is_ignored(tmp_path):
         landing = next(x for by in state.sites.values() for r in by.values() for x in r.landings
                        if x.what == "landing")
         assert not landing.bulk.loaded and state == _full_fold(folder)
+
+
+def test_a_snapshot_whose_landing_reference_is_not_a_line_number_is_ignored(tmp_path):
+    """A landing's bulk is stored as its journal line number; anything else there
+    (a damaged snapshot) is a snapshot that does not decode: every event is folded
+    (the decode hook raised NotImplementedError, which escaped resume)."""
+    e = _session(tmp_path)
+    folder = tmp_path / "s1"
+    with pytest.raises(msgspec.ValidationError, match="no snapshot form"):
+        msgspec.msgpack.decode(msgspec.msgpack.encode("not a line"), type=st.Bulk,
+                               dec_hook=checkpoint._Lines(folder, e.journal.prefix()).dec_hook)
+    e.close(False)

@@ -59,7 +59,7 @@ class _Snapshot(msgspec.Struct, frozen=True):
 def _enc_hook(obj: Any) -> Any:
     if isinstance(obj, Bulk):
         return obj.seq  # the journal line it reads back from
-    raise NotImplementedError(f"{type(obj).__name__} has no snapshot form")
+    raise TypeError(f"{type(obj).__name__} has no snapshot form")
 
 
 _ENCODER = msgspec.msgpack.Encoder(enc_hook=_enc_hook)
@@ -122,7 +122,9 @@ class _Lines:
     def dec_hook(self, type_: type, obj: Any) -> Any:
         if type_ is Bulk and isinstance(obj, int):
             return Bulk(obj, load=self.load)
-        raise NotImplementedError(f"{type_.__name__} has no snapshot form")
+        # msgspec turns a TypeError here into a ValidationError, which _restore
+        # takes as "the snapshot does not decode": every event is folded instead
+        raise TypeError(f"{type_.__name__} has no snapshot form")
 
 
 def _restore(folder: Path, snap: _Snapshot) -> st.SessionState | None:
