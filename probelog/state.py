@@ -18,7 +18,7 @@ Units: frequencies in Hz; ``die`` is ``(column, row)``.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable
 from functools import reduce
 from typing import Any
 
@@ -113,24 +113,6 @@ class SessionState(_S, frozen=True):
         """Final action per decided (die, site)."""
         return {(die, name): rec.decision.action for die, by_site in self.sites.items()
                 for name, rec in by_site.items() if rec.decision is not None}
-
-    def die_status(self, die: Die, planned_sites: Sequence[str]) -> str:
-        """todo / partial / done / skipped / failed / accepted-despite-fail for a die
-        whose plan has ``planned_sites``. A give-up wins over an accepted FAIL."""
-        by_site = self.sites.get(die, {})
-        acts = [by_site[s].decision.action for s in planned_sites  # type: ignore[union-attr]
-                if s in by_site and by_site[s].decision is not None]
-        if not acts:
-            return NOT_STARTED
-        if len(acts) < len(planned_sites):
-            return PARTIAL
-        if all(a == ev.SKIP for a in acts):
-            return SKIPPED
-        if ev.GIVE_UP in acts:
-            return FAILED
-        if ev.ACCEPT_DESPITE_FAIL in acts:
-            return ACCEPTED_DESPITE_FAIL
-        return DONE
 
     def summary(self, planned_sites: int | None = None) -> dict[str, Any]:
         """Counts for summaries: ``accepted`` counts plain accepts, ``accepted_despite_fail``

@@ -1,13 +1,36 @@
-"""Views of a SessionState for the die map, the die history and reports:
-metrics at a chosen frequency, the frequencies and names journaled, one die's
-history in journal order. Pure functions; units: Hz.
+"""Views of a SessionState for the die map, the die history and reports: a
+die's status, metrics at a chosen frequency, the frequencies and names
+journaled, one die's history in journal order. Pure functions; units: Hz.
 """
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
+from probelog import events as ev
 from probelog.events import Die
-from probelog.state import SessionState
+from probelog.state import (ACCEPTED_DESPITE_FAIL, DONE, FAILED, NOT_STARTED, PARTIAL, SKIPPED,
+                            SessionState)
 from probelog.state_records import DecisionRec, LandingRec, metric_at
+
+
+def die_status(state: SessionState, die: Die, planned_sites: Sequence[str]) -> str:
+    """todo / partial / done / skipped / failed / accepted-despite-fail for a die
+    whose plan has ``planned_sites``. A give-up wins over an accepted FAIL."""
+    by_site = state.sites.get(die, {})
+    acts = [by_site[s].decision.action for s in planned_sites  # type: ignore[union-attr]
+            if s in by_site and by_site[s].decision is not None]
+    if not acts:
+        return NOT_STARTED
+    if len(acts) < len(planned_sites):
+        return PARTIAL
+    if all(a == ev.SKIP for a in acts):
+        return SKIPPED
+    if ev.GIVE_UP in acts:
+        return FAILED
+    if ev.ACCEPT_DESPITE_FAIL in acts:
+        return ACCEPTED_DESPITE_FAIL
+    return DONE
 
 
 def kept_metric_at(state: SessionState, die: Die, site: str, name: str, f_hz: float) -> float | None:

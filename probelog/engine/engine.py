@@ -31,6 +31,7 @@ from probelog.engine.types import (CAUTIONS, CalibrationComputed, CalOutcome, En
                                    Phase, SessionClosed)
 from probelog.journal import Journal, JournalError
 from probelog.plan_types import Plan
+from probelog.state_views import die_status
 
 
 class Engine(Policy):
@@ -185,7 +186,7 @@ class Engine(Policy):
     def wafer_status(self) -> dict[tuple[int, int], str]:
         """Die -> todo / partial / done / skipped / failed / accepted-despite-fail."""
         names = [s.name for s in self.plan.sequence_sites]
-        return {die: self.state.die_status(die, names) for die in self.plan.iter_dies()}
+        return {die: die_status(self.state, die, names) for die in self.plan.iter_dies()}
 
     def summary(self) -> dict[str, Any]:
         return self.state.summary(len(self.view.sequence))

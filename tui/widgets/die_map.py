@@ -19,14 +19,16 @@ from textual.message import Message
 from textual.reactive import reactive
 from textual.widget import Widget
 
+from probelog.state import ACCEPTED_DESPITE_FAIL, DONE, FAILED, NOT_STARTED, PARTIAL, SKIPPED
+
 Die = tuple[int, int]
 
-STATUS_MARK = {"todo": "·", "partial": "◐", "done": "✔", "accepted-despite-fail": "!", "failed": "✖",
-               "skipped": "↷"}
-STATUS_WORD = {"todo": "to do", "partial": "partly done", "done": "done",
-               "accepted-despite-fail": "done with a FAIL kept", "failed": "failed", "skipped": "skipped"}
-STATUS_STYLE = {"todo": "grey50", "partial": "bold cyan", "done": "bold green", "accepted-despite-fail": "bold magenta",
-                "failed": "bold red", "skipped": "bold yellow"}
+# keyed by the state's die status values (probelog.state), the one list of them
+STATUS_MARK = {NOT_STARTED: "·", PARTIAL: "◐", DONE: "✔", ACCEPTED_DESPITE_FAIL: "!", FAILED: "✖", SKIPPED: "↷"}
+STATUS_WORD = {NOT_STARTED: "to do", PARTIAL: "partly done", DONE: "done",
+               ACCEPTED_DESPITE_FAIL: "done with a FAIL kept", FAILED: "failed", SKIPPED: "skipped"}
+STATUS_STYLE = {NOT_STARTED: "grey50", PARTIAL: "bold cyan", DONE: "bold green", ACCEPTED_DESPITE_FAIL: "bold magenta",
+                FAILED: "bold red", SKIPPED: "bold yellow"}
 SHADES = "░▒▓█"
 SHADE_STYLE = ("blue", "cyan", "yellow", "bold red")
 OUTLINE = "•"
