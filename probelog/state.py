@@ -39,6 +39,8 @@ OPENED, CALIBRATING, VERIFYING, PROBING, DECIDING, CLOSED = (
 # Die status values (die map, summaries): one per distinct outcome.
 NOT_STARTED, PARTIAL, DONE, SKIPPED, FAILED, ACCEPTED_DESPITE_FAIL = (
     "todo", "partial", "done", "skipped", "failed", "accepted-despite-fail")
+# Every planned site of the die decided: nothing left to land on or skip.
+FINISHED = frozenset((DONE, SKIPPED, FAILED, ACCEPTED_DESPITE_FAIL))
 
 
 class SessionState(_S, frozen=True):

@@ -169,3 +169,21 @@ def test_the_board_names_what_each_contact_figure_measures():
     # a matched site's reflection signature is still a reflection (lower passes)
     refl = CheckResult("contact", Verdict.PASS, -25.0, -10.0, 2e9, "worst |Sii| -25.0 dB: landed", "dB")
     assert quantity_of(refl) == "|Sii| worst port"
+
+
+def test_a_die_finished_with_a_kept_fail_is_finished_for_goto_and_skip():
+    """Die status has six values (probelog.state); the go-to refusal and the
+    die-skip guard each listed three finished ones by hand and missed
+    'accepted-despite-fail', so the engine was asked to land on, or skip, a die
+    with nothing left (its refusal ended in an error dialog)."""
+    from types import SimpleNamespace
+
+    from probelog import state as st
+    from probelog.tui.screens.probe_text import goto_refusal
+
+    for status in (st.DONE, st.SKIPPED, st.FAILED, st.ACCEPTED_DESPITE_FAIL):
+        engine = SimpleNamespace(phase="PROBING", wafer_status={(2, 3): status})
+        assert goto_refusal(engine, (2, 3), busy=False) == f"die 2,3 is {status}: nothing left to land on"
+    for status in (st.NOT_STARTED, st.PARTIAL):
+        engine = SimpleNamespace(phase="PROBING", wafer_status={(2, 3): status})
+        assert goto_refusal(engine, (2, 3), busy=False) is None

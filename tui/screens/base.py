@@ -17,6 +17,7 @@ from textual.worker import Worker, WorkerState
 
 from probelog import events as ev
 from probelog.engine.protocol import EngineProtocol
+from probelog.state import FINISHED
 from probelog.tui.host import host
 from probelog.tui.messages import CalibrationSolved, ChecksFinished, DecisionRecorded, LandingStarted, SweepMeasured
 from probelog.tui.screens.dialogs import AskReason, KeysHelp, help_rows
@@ -116,7 +117,7 @@ class BenchScreen(Screen):
         on it is skipped first, with the same reason."""
         if kind_name(engine.phase) == "DECIDING":
             engine.skip(reason)
-        if engine.wafer_status.get(tuple(die)) not in ("done", "failed", "skipped"):
+        if engine.wafer_status.get(tuple(die)) not in FINISHED:
             engine.skip_die(die, reason)
 
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:

@@ -7,6 +7,7 @@ wording is read and tested in one place.
 from __future__ import annotations
 
 from probelog.engine.protocol import EngineProtocol
+from probelog.state import FINISHED
 from probelog.tui.widgets.verdict_board import verdict_word
 from probelog.tui.widgets.where_bar import describe_step, kind_name
 
@@ -60,6 +61,6 @@ def goto_refusal(engine: EngineProtocol, die: tuple[int, int], busy: bool) -> st
         return "every site of the plan is decided"
     if status is None:
         return f"{where} is not in the plan"
-    if status in ("done", "failed", "skipped"):
+    if status in FINISHED:
         return f"{where} is {status}: nothing left to land on"
     return None
